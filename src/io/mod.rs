@@ -1,0 +1,126 @@
+//! Parquet in and out, with errors that name the file, column and row.
+
+use std::fs::File;
+use std::path::{Path, PathBuf};
+
+use polars::prelude::*;
+
+/// Errors reading or writing tables.
+#[derive(Debug, thiserror::Error)]
+pub enum IoError {
+    #[error("cannot open {path}: {source}")]
+    Open { path: PathBuf, source: std::io::Error },
+    #[error("{path} is not a readable Parquet file: {message}")]
+    Parquet { path: PathBuf, message: String },
+    #[error("{path}: missing column '{column}' (expected {expected})")]
+    MissingColumn { path: PathBuf, column: String, expected: String },
+    #[error("{path}: column '{column}' has type {found}, expected {expected}")]
+    ColumnType { path: PathBuf, column: String, found: String, expected: String },
+    #[error("{path}: column '{column}' row {row}: {message}")]
+    Value { path: PathBuf, column: String, row: usize, message: String },
+    #[error("cannot write {path}: {message}")]
+    Write { path: PathBuf, message: String },
+}
+
+/// Reads a whole Parquet file.
+pub fn read_parquet(path: &Path) -> Result<DataFrame, IoError> {
+    let f = File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
+    // polars panics on some corrupt inputs; contain that as an error.
+    let res = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| ParquetReader::new(f).finish()));
+    match res {
+        Ok(Ok(df)) => Ok(df),
+        Ok(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }),
+        Err(_) => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }),
+    }
+}
+
+/// Key-value metadata of a Parquet file, in file order.
+pub fn read_parquet_metadata(path: &Path) -> Result<Vec<(String, String)>, IoError> {
+    let f = File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
+    let mut reader = ParquetReader::new(f);
+    let md = reader.get_metadata().map_err(|e| IoError::Parquet { path: path.into(), message: e.to_string() })?;
+    Ok(md
+        .key_value_metadata()
+        .as_ref()
+        .map(|kv| kv.iter().map(|k| (k.key.clone(), k.value.clone().unwrap_or_default())).collect())
+        .unwrap_or_default())
+}
+
+/// Writes a table with key-value metadata to `path`, through a temporary
+/// file renamed into place only when complete.
+pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, String)]) -> Result<(), IoError> {
+    let werr = |message: String| IoError::Write { path: path.into(), message };
+    if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
+        std::fs::create_dir_all(dir).map_err(|e| werr(e.to_string()))?;
+    }
+    let tmp = path.with_extension("parquet.partial");
+    let f = File::create(&tmp).map_err(|e| werr(e.to_string()))?;
+    let kv: Vec<polars_parquet::write::KeyValue> = metadata
+        .iter()
+        .map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) })
+        .collect();
+    ParquetWriter::new(f)
+        .with_compression(ParquetCompression::Zstd(None))
+        .set_parallel(false)
+        .with_key_value_metadata(Some(KeyValueMetadata::Static(kv)))
+        .finish(df)
+        .map_err(|e| werr(e.to_string()))?;
+    std::fs::rename(&tmp, path).map_err(|e| werr(e.to_string()))?;
+    Ok(())
+}
+
+/// A typed view of a table's columns that names the file in every error.
+pub struct Columns<'a> {
+    pub df: &'a DataFrame,
+    pub path: &'a Path,
+}
+
+impl<'a> Columns<'a> {
+    fn column(&self, name: &str, expected: &str) -> Result<&'a Column, IoError> {
+        self.df.column(name).map_err(|_| IoError::MissingColumn {
+            path: self.path.into(),
+            column: name.into(),
+            expected: expected.into(),
+        })
+    }
+
+    fn type_err(&self, name: &str, c: &Column, expected: &str) -> IoError {
+        IoError::ColumnType {
+            path: self.path.into(),
+            column: name.into(),
+            found: c.dtype().to_string(),
+            expected: expected.into(),
+        }
+    }
+
+    /// A required Int64 column (Int32 is widened).
+    pub fn i64(&self, name: &str) -> Result<Vec<Option<i64>>, IoError> {
+        let c = self.column(name, "int64")?;
+        match c.dtype() {
+            DataType::Int64 | DataType::Int32 | DataType::UInt32 => {
+                let c = c.cast(&DataType::Int64).map_err(|_| self.type_err(name, c, "int64"))?;
+                Ok(c.i64().map_err(|_| self.type_err(name, &c, "int64"))?.iter().collect())
+            }
+            _ => Err(self.type_err(name, c, "int64")),
+        }
+    }
+
+    /// A required Float64 column (Float32 is widened).
+    pub fn f64(&self, name: &str) -> Result<Vec<Option<f64>>, IoError> {
+        let c = self.column(name, "float64")?;
+        match c.dtype() {
+            DataType::Float64 | DataType::Float32 => {
+                let c = c.cast(&DataType::Float64).map_err(|_| self.type_err(name, c, "float64"))?;
+                Ok(c.f64().map_err(|_| self.type_err(name, &c, "float64"))?.iter().collect())
+            }
+            _ => Err(self.type_err(name, c, "float64")),
+        }
+    }
+
+    /// A required String column.
+    pub fn str(&self, name: &str) -> Result<Vec<Option<String>>, IoError> {
+        let c = self.column(name, "string")?;
+        let ca = c.str().map_err(|_| self.type_err(name, c, "string"))?;
+        Ok(ca.iter().map(|v| v.map(str::to_string)).collect())
+    }
+}

@@ -1,0 +1,164 @@
+//! The `lapse` command: parses arguments, calls the library, prints, and sets
+//! the exit code (0 ok, 1 check failed or tolerance exceeded, 2 error).
+
+use std::io::{BufRead, Write};
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use anyhow::{Context, Result, bail};
+use clap::{Parser, Subcommand};
+
+use lapse::time::{ExpiryPolicy, LeapSecondTable, TimeScale, TimeScales, parse_epoch};
+
+#[derive(Parser)]
+#[command(name = "lapse", version, about = "Relativistic corrections and residuals for time-tagged observations")]
+struct Cli {
+    /// More log output (-v info, -vv debug).
+    #[arg(short, long, action = clap::ArgAction::Count, global = true)]
+    verbose: u8,
+    /// Only errors on stderr.
+    #[arg(short, long, global = true)]
+    quiet: bool,
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Run a pipeline file (kind selects the job).
+    Run {
+        /// The pipeline TOML file.
+        pipeline: PathBuf,
+        /// Write the output here instead of the pipeline's [output] path.
+        #[arg(long)]
+        output: Option<PathBuf>,
+    },
+    /// Convert epochs between time scales, printed to the femtosecond.
+    Time {
+        /// Epochs: YYYY-MM-DDThh:mm:ss[.f], mjd:DAYS[.f] (or a bare MJD), jd:DAYS[.f].
+        epochs: Vec<String>,
+        /// Scale of the given epochs: utc, tai, tt, gps, tcg, tcb, tdb.
+        #[arg(long, default_value = "utc")]
+        from: String,
+        /// Scales to print, comma separated (default: all but ut1).
+        #[arg(long, value_delimiter = ',')]
+        to: Vec<String>,
+        /// Read epochs from a file, one per line ('#' starts a comment).
+        #[arg(long)]
+        file: Option<PathBuf>,
+        /// IERS Leap_Second.dat to use instead of the built-in table.
+        #[arg(long)]
+        leap_file: Option<PathBuf>,
+        /// Accept UTC past the leap-second table's last known window, assuming
+        /// no further leap seconds (planning only).
+        #[arg(long)]
+        extend_leaps: bool,
+        /// Topocentric part of TDB − TT for the observer, seconds (v_E·x/c²);
+        /// 0 is the geocentre.
+        #[arg(long, default_value_t = 0.0, allow_hyphen_values = true)]
+        observer_term_s: f64,
+    },
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    let level = if cli.quiet {
+        "error"
+    } else {
+        match cli.verbose {
+            0 => "warn",
+            1 => "info",
+            _ => "debug",
+        }
+    };
+    let filter = tracing_subscriber::EnvFilter::try_from_env("LAPSE_LOG")
+        .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(level));
+    tracing_subscriber::fmt().with_env_filter(filter).with_writer(std::io::stderr).init();
+    match dispatch(cli) {
+        Ok(code) => code,
+        Err(e) => {
+            eprintln!("lapse: error: {e:#}");
+            ExitCode::from(2)
+        }
+    }
+}
+
+fn dispatch(cli: Cli) -> Result<ExitCode> {
+    match cli.command {
+        Command::Run { pipeline, output } => run(pipeline, output, cli.quiet),
+        Command::Time { epochs, from, to, file, leap_file, extend_leaps, observer_term_s } => {
+            time(epochs, &from, &to, file, leap_file, extend_leaps, observer_term_s)
+        }
+    }
+}
+
+fn run(pipeline: PathBuf, output: Option<PathBuf>, quiet: bool) -> Result<ExitCode> {
+    let s = lapse::pipeline::run(&pipeline, output.as_deref())?;
+    if !quiet {
+        let mut out = std::io::stdout().lock();
+        writeln!(out, "pipeline   {}", pipeline.display())?;
+        writeln!(out, "rows in    {}", s.rows_in)?;
+        writeln!(out, "rows out   {}  → {}", s.rows_out, s.output.display())?;
+        writeln!(out, "rejected   {}  → {}", s.rows_rejected, s.rejects.display())?;
+        for (reason, n) in &s.rejects_by_reason {
+            writeln!(out, "  {n:>8}  {reason}")?;
+        }
+        for note in &s.notes {
+            writeln!(out, "{note}")?;
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn time(
+    mut epochs: Vec<String>,
+    from: &str,
+    to: &[String],
+    file: Option<PathBuf>,
+    leap_file: Option<PathBuf>,
+    extend_leaps: bool,
+    observer_term_s: f64,
+) -> Result<ExitCode> {
+    let from: TimeScale = from.parse().context("--from")?;
+    let targets: Vec<TimeScale> = if to.is_empty() {
+        TimeScale::ALL.into_iter().filter(|s| *s != TimeScale::Ut1).collect()
+    } else {
+        to.iter().map(|s| s.parse::<TimeScale>()).collect::<Result<_, _>>().context("--to")?
+    };
+    let mut leaps = match &leap_file {
+        Some(p) => LeapSecondTable::from_file(p)?,
+        None => LeapSecondTable::builtin(),
+    };
+    if extend_leaps {
+        leaps = leaps.with_policy(ExpiryPolicy::ExtendLastOffset);
+    }
+    let ts = TimeScales::new(leaps);
+    let mut sources: Vec<String> = epochs.iter().enumerate().map(|(i, _)| format!("argument {}", i + 1)).collect();
+    if let Some(path) = &file {
+        let f = std::fs::File::open(path).with_context(|| format!("cannot open {}", path.display()))?;
+        for (i, line) in std::io::BufReader::new(f).lines().enumerate() {
+            let line = line.with_context(|| format!("cannot read {}", path.display()))?;
+            let body = line.split('#').next().unwrap_or("").trim();
+            if !body.is_empty() {
+                epochs.push(body.to_string());
+                sources.push(format!("{} line {}", path.display(), i + 1));
+            }
+        }
+    }
+    if epochs.is_empty() {
+        bail!("no epochs given (arguments or --file)");
+    }
+    let mut out = std::io::stdout().lock();
+    for (text, source) in epochs.iter().zip(&sources) {
+        let e = parse_epoch(&ts, from, text).with_context(|| source.clone())?;
+        writeln!(out, "# {text} ({from})")?;
+        for t in &targets {
+            let c = ts.convert(e, *t, observer_term_s).with_context(|| format!("{source}: {text}"))?;
+            let mjd = ts.mjd_fraction_digits(&c, 18)?;
+            let iso = c.to_string();
+            let iso = iso.rsplit_once(' ').map(|(a, _)| a).unwrap_or(&iso);
+            writeln!(out, "{:<4} {iso}  MJD {mjd}", t.name())?;
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}

@@ -1,0 +1,204 @@
+//! `kind = "timescales"`: a table of epochs in one scale → the same epochs
+//! in every other scale (geocentric), with TDB − TT and TT − UTC broken out.
+//!
+//! Input columns: `obs_id` (string, unique), `mjd_day` (int64), `mjd_frac`
+//! (float64 in [0, 1)). Other columns pass through.
+//! Output columns: `obs_id`, `<scale>_mjd_day`/`<scale>_mjd_frac` for each
+//! requested scale, `tt_minus_utc_s`, `tdb_minus_tt_s` (geocentric), then the
+//! pass-through columns. Rows that cannot be converted go to the rejects
+//! table beside the output with a `reason`.
+
+use std::collections::HashMap;
+use std::path::PathBuf;
+
+use polars::prelude::*;
+use rayon::prelude::*;
+use serde::Deserialize;
+
+use super::{PipelineError, PipelineFile, RunSummary, rejects_path, sha256_file};
+use crate::io::{Columns, IoError, read_parquet, write_parquet};
+use crate::time::femto::{FS_PER_S, ratio_to_f64};
+use crate::time::{ExpiryPolicy, LeapSecondTable, TimeScale, TimeScales};
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct InputCfg {
+    path: PathBuf,
+    #[serde(default = "default_scale")]
+    scale: String,
+}
+
+fn default_scale() -> String {
+    "utc".into()
+}
+
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct TimeCfg {
+    leap_seconds: Option<PathBuf>,
+    #[serde(default)]
+    extend_leap_table: bool,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct OutputCfg {
+    path: PathBuf,
+    scales: Option<Vec<String>>,
+}
+
+/// The configuration of a `timescales` pipeline.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TimescalesPipeline {
+    #[allow(dead_code)]
+    kind: String,
+    input: InputCfg,
+    #[serde(default)]
+    time: TimeCfg,
+    output: OutputCfg,
+}
+
+/// Per-row result: (per-scale day/frac, tt−utc s, tdb−tt s) or a reason.
+type RowResult = Result<(Vec<(i64, f64)>, f64, f64), String>;
+
+/// Rows per parallel chunk; results do not depend on it.
+const CHUNK_ROWS: usize = 8192;
+
+/// Runs a `timescales` pipeline.
+pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> Result<RunSummary, PipelineError> {
+    let cfg: TimescalesPipeline = file.parse()?;
+    let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
+    let in_scale: TimeScale = cfg.input.scale.parse().map_err(|e: crate::time::TimeError| invalid(format!("[input] scale: {e}")))?;
+    let out_scales: Vec<TimeScale> = match &cfg.output.scales {
+        Some(list) => list
+            .iter()
+            .map(|s| s.parse().map_err(|e: crate::time::TimeError| invalid(format!("[output] scales: {e}"))))
+            .collect::<Result<_, _>>()?,
+        None => vec![TimeScale::Utc, TimeScale::Tai, TimeScale::Tt, TimeScale::Tcg, TimeScale::Tdb, TimeScale::Tcb],
+    };
+    if out_scales.contains(&TimeScale::Ut1) || in_scale == TimeScale::Ut1 {
+        return Err(invalid("UT1 needs Earth-orientation data, which timescales pipelines do not load".into()));
+    }
+    let leap_path = cfg.time.leap_seconds.as_ref().map(|p| file.resolve(p));
+    let mut leaps = match &leap_path {
+        Some(p) => LeapSecondTable::from_file(p).map_err(|e| PipelineError::Time { context: "[time] leap_seconds".into(), source: e })?,
+        None => LeapSecondTable::builtin(),
+    };
+    if cfg.time.extend_leap_table {
+        leaps = leaps.with_policy(ExpiryPolicy::ExtendLastOffset);
+    }
+    let ts = TimeScales::new(leaps);
+
+    let input_path = file.resolve(&cfg.input.path);
+    let output_path = output.map(std::path::Path::to_path_buf).unwrap_or_else(|| file.resolve(&cfg.output.path));
+    let df = read_parquet(&input_path)?;
+    let cols = Columns { df: &df, path: &input_path };
+    let ids = cols.str("obs_id")?;
+    let days = cols.i64("mjd_day")?;
+    let fracs = cols.f64("mjd_frac")?;
+    let mut seen: HashMap<&str, usize> = HashMap::with_capacity(ids.len());
+    for (row, id) in ids.iter().enumerate() {
+        let Some(id) = id.as_deref() else {
+            return Err(IoError::Value { path: input_path.clone(), column: "obs_id".into(), row, message: "null obs_id".into() }.into());
+        };
+        if let Some(first) = seen.insert(id, row) {
+            return Err(PipelineError::DuplicateId { path: input_path.clone(), obs_id: id.into(), first, second: row });
+        }
+    }
+
+    let n = df.height();
+    let rows: Vec<usize> = (0..n).collect();
+    let results: Vec<RowResult> = rows
+        .par_chunks(CHUNK_ROWS)
+        .flat_map_iter(|chunk| {
+            chunk.iter().map(|&i| convert_row(&ts, in_scale, &out_scales, days[i], fracs[i]))
+        })
+        .collect();
+
+    let ok_mask: BooleanChunked = results.iter().map(|r| r.is_ok()).collect();
+    let mut out = df.filter(&ok_mask).map_err(|e| PipelineError::Invalid { path: input_path.clone(), message: e.to_string() })?;
+    let rejected_mask: BooleanChunked = results.iter().map(|r| r.is_err()).collect();
+    let mut rejects = df.filter(&rejected_mask).map_err(|e| PipelineError::Invalid { path: input_path.clone(), message: e.to_string() })?;
+
+    let good: Vec<&(Vec<(i64, f64)>, f64, f64)> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
+    let mut computed: Vec<Column> = Vec::new();
+    for (k, s) in out_scales.iter().enumerate() {
+        computed.push(Column::new(format!("{}_mjd_day", s.name()).into(), good.iter().map(|g| g.0[k].0).collect::<Vec<i64>>()));
+        computed.push(Column::new(format!("{}_mjd_frac", s.name()).into(), good.iter().map(|g| g.0[k].1).collect::<Vec<f64>>()));
+    }
+    computed.push(Column::new("tt_minus_utc_s".into(), good.iter().map(|g| g.1).collect::<Vec<f64>>()));
+    computed.push(Column::new("tdb_minus_tt_s".into(), good.iter().map(|g| g.2).collect::<Vec<f64>>()));
+    let reasons: Vec<&str> = results.iter().filter_map(|r| r.as_ref().err().map(String::as_str)).collect();
+
+    // Order: obs_id, computed columns, then pass-through columns.
+    let ids_col = out.column("obs_id").map_err(|e| PipelineError::Invalid { path: input_path.clone(), message: e.to_string() })?.clone();
+    let passthrough: Vec<Column> = out
+        .columns()
+        .iter()
+        .filter(|c| !matches!(c.name().as_str(), "obs_id" | "mjd_day" | "mjd_frac"))
+        .cloned()
+        .collect();
+    let mut all = vec![ids_col];
+    all.extend(computed);
+    all.extend(passthrough);
+    out = DataFrame::new_infer_height(all).map_err(|e| PipelineError::Invalid { path: output_path.clone(), message: e.to_string() })?;
+    rejects
+        .with_column(Column::new("reason".into(), reasons.clone()))
+        .map_err(|e| PipelineError::Invalid { path: output_path.clone(), message: e.to_string() })?;
+
+    let mut summary = RunSummary {
+        rows_in: n,
+        rows_out: out.height(),
+        rows_rejected: rejects.height(),
+        output: output_path.clone(),
+        rejects: rejects_path(&output_path),
+        ..Default::default()
+    };
+    for r in &reasons {
+        *summary.rejects_by_reason.entry(reason_class(r)).or_default() += 1;
+    }
+    let metadata = vec![
+        ("lapse.version".to_string(), crate::VERSION.to_string()),
+        ("lapse.pipeline.kind".to_string(), "timescales".to_string()),
+        ("lapse.pipeline.sha256".to_string(), file.sha256.clone()),
+        ("lapse.pipeline.text".to_string(), file.text.clone()),
+        ("lapse.input.observations.sha256".to_string(), sha256_file(&input_path)?),
+        ("lapse.input.leap_seconds".to_string(), ts.leap_seconds().source_name().to_string()),
+        ("lapse.rows.in".to_string(), summary.rows_in.to_string()),
+        ("lapse.rows.out".to_string(), summary.rows_out.to_string()),
+        ("lapse.rows.rejected".to_string(), summary.rows_rejected.to_string()),
+    ];
+    write_parquet(&mut out, &output_path, &metadata)?;
+    write_parquet(&mut rejects, &summary.rejects, &metadata)?;
+    let (min_tdb_tt, max_tdb_tt) = good.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), g| (a.min(g.2), b.max(g.2)));
+    if !good.is_empty() {
+        summary.notes.push(format!("TDB − TT (geocentric) over the batch: {min_tdb_tt:+.9e} s … {max_tdb_tt:+.9e} s"));
+    }
+    Ok(summary)
+}
+
+/// The class of a reject reason (its text up to the first ':').
+fn reason_class(reason: &str) -> String {
+    reason.split(':').next().unwrap_or(reason).trim().to_string()
+}
+
+fn convert_row(ts: &TimeScales, in_scale: TimeScale, out: &[TimeScale], day: Option<i64>, frac: Option<f64>) -> RowResult {
+    let day = day.ok_or("null mjd_day: give the MJD day number")?;
+    let frac = frac.ok_or("null mjd_frac: give the fraction of the day")?;
+    if !frac.is_finite() || !(0.0..1.0).contains(&frac) {
+        return Err(format!("mjd_frac out of range: {frac:?} is not in [0, 1)"));
+    }
+    let e = ts.epoch_from_mjd(in_scale, day, frac).map_err(|e| format!("epoch not convertible: {e}"))?;
+    let mut parts = Vec::with_capacity(out.len());
+    for s in out {
+        let c = ts.convert(e, *s, 0.0).map_err(|e| format!("epoch not convertible: {e}"))?;
+        parts.push(ts.mjd_parts(&c).map_err(|e| format!("epoch not convertible: {e}"))?);
+    }
+    let tt = ts.tt_fs(&e, 0.0).map_err(|e| format!("epoch not convertible: {e}"))?;
+    let tt_minus_utc_s = match ts.convert(e, TimeScale::Utc, 0.0) {
+        Ok(u) => ratio_to_f64(tt - u.label_fs(), FS_PER_S),
+        Err(err) => return Err(format!("epoch not convertible: {err}")),
+    };
+    Ok((parts, tt_minus_utc_s, ts.tdb_minus_tt_s(tt, 0.0)))
+}

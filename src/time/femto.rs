@@ -1,0 +1,254 @@
+//! Exact fixed-point arithmetic on femtosecond counts.
+//!
+//! lapse carries every epoch as an integer count of femtoseconds (1 fs =
+//! 1e-15 s) in an `i128`. Addition and subtraction are exact and
+//! associative, so results do not depend on evaluation order, thread count
+//! or chunking (a requirement for bit-reproducible output). The range of an
+//! `i128` in femtoseconds is ±5.4e15 years.
+//!
+//! Input and output through `f64` (MJD fractions of a day, seconds) is
+//! converted *exactly*: an `f64` is a dyadic rational m·2^e, so its product
+//! with an integer day length can be formed in `i128` and rounded once. The
+//! reverse conversion returns the `f64` nearest to the exact quotient, so an
+//! f64 fraction of a day ≥ 2⁻¹⁴ (its ulp is then coarser than a femtosecond
+//! of the day) survives a round trip through femtoseconds bit for bit;
+//! smaller fractions come back within half a femtosecond.
+//!
+//! # Accuracy
+//! Conversions from `f64` round to the nearest femtosecond (ties to even);
+//! conversions to `f64` are correctly rounded (nearest `f64`).
+
+/// Femtoseconds per SI second.
+pub const FS_PER_S: i128 = 1_000_000_000_000_000;
+/// Femtoseconds per day of 86 400 s.
+pub const FS_PER_DAY: i128 = 86_400 * FS_PER_S;
+
+/// Splits a finite `f64` into (mantissa, exponent) with `x = m · 2^e`,
+/// `m` carrying the sign. Zero gives (0, 0).
+fn decompose(x: f64) -> (i64, i32) {
+    let bits = x.to_bits();
+    let sign: i64 = if bits >> 63 == 0 { 1 } else { -1 };
+    let exp_bits = ((bits >> 52) & 0x7ff) as i32;
+    let frac_bits = (bits & 0x000f_ffff_ffff_ffff) as i64;
+    if exp_bits == 0 {
+        // Subnormal (or zero).
+        (sign * frac_bits, -1074)
+    } else {
+        (sign * (frac_bits | (1 << 52)), exp_bits - 1075)
+    }
+}
+
+/// Divides `n` by 2^k (k ≥ 0) rounding to nearest, ties to even.
+fn shift_round(n: i128, k: u32) -> i128 {
+    if k == 0 {
+        return n;
+    }
+    if k >= 127 {
+        return 0;
+    }
+    let neg = n < 0;
+    let a = n.unsigned_abs();
+    let q = a >> k;
+    let rem = a & ((1u128 << k) - 1);
+    let half = 1u128 << (k - 1);
+    let q = if rem > half || (rem == half && (q & 1) == 1) { q + 1 } else { q };
+    let q = q as i128;
+    if neg { -q } else { q }
+}
+
+/// Exact product `x · scale_fs`, rounded to the nearest femtosecond.
+///
+/// `x` is a finite `f64` (for example a fraction of a day) and `scale_fs` an
+/// integer number of femtoseconds (for example the day's length). Returns
+/// `None` when `x` is not finite or the result overflows `i128`.
+pub fn mul_f64_fs(x: f64, scale_fs: i128) -> Option<i128> {
+    if !x.is_finite() {
+        return None;
+    }
+    let (m, e) = decompose(x);
+    if m == 0 {
+        return Some(0);
+    }
+    let prod = (m as i128).checked_mul(scale_fs)?;
+    if e >= 0 {
+        if e >= 64 {
+            return None;
+        }
+        prod.checked_mul(1i128 << e)
+    } else {
+        Some(shift_round(prod, (-e) as u32))
+    }
+}
+
+/// Seconds as `f64` → femtoseconds, rounded to the nearest femtosecond.
+///
+/// Returns `None` for a non-finite input or an overflow.
+pub fn seconds_to_fs(seconds_s: f64) -> Option<i128> {
+    mul_f64_fs(seconds_s, FS_PER_S)
+}
+
+/// The `f64` nearest to the exact quotient `num_fs / den_fs` (`den_fs > 0`).
+///
+/// Used to turn femtoseconds of a day back into a fraction of that day, and
+/// femtoseconds into seconds, with a single correct rounding. The f64
+/// quotient is within one ulp of the exact value; the guess and its two
+/// neighbours are compared exactly in integer arithmetic.
+pub fn ratio_to_f64(num_fs: i128, den_fs: i128) -> f64 {
+    debug_assert!(den_fs > 0);
+    let guess = num_fs as f64 / den_fs as f64;
+    let cands = [guess.next_down(), guess, guess.next_up()];
+    let parts = cands.map(decompose);
+    let e_min = parts.iter().map(|p| p.1).min().unwrap_or(0);
+    if e_min > 0 {
+        // Quotients ≥ 2^53 never occur here; the guess is then already exact
+        // to within one ulp.
+        return guess;
+    }
+    let Some(rhs) = 1i128.checked_shl((-e_min) as u32).and_then(|s| num_fs.checked_mul(s)) else {
+        return guess;
+    };
+    let mut best = guess;
+    let mut best_err = u128::MAX;
+    for (cand, (m, e)) in cands.iter().zip(parts) {
+        // cand·den − num, in units of 2^e_min: m·2^(e−e_min)·den − num·2^(−e_min).
+        let lhs = (m as i128)
+            .checked_mul(1i128 << (e - e_min))
+            .and_then(|v| v.checked_mul(den_fs));
+        let Some(lhs) = lhs else { continue };
+        let err = (lhs - rhs).unsigned_abs();
+        if err < best_err {
+            best_err = err;
+            best = *cand;
+        }
+    }
+    best
+}
+
+/// Femtoseconds → seconds, correctly rounded.
+pub fn fs_to_seconds(fs: i128) -> f64 {
+    ratio_to_f64(fs, FS_PER_S)
+}
+
+/// Floor division and non-negative remainder.
+pub fn div_floor(a: i128, b: i128) -> (i128, i128) {
+    let q = a.div_euclid(b);
+    (q, a - q * b)
+}
+
+/// Parses a decimal fraction given as its digits after the point (at most
+/// 30 digits are used; further digits are rounded) into femtoseconds of a
+/// unit of `unit_fs` femtoseconds, rounded to nearest.
+///
+/// Returns `None` when `digits` contains anything but ASCII digits.
+pub fn decimal_fraction_to_fs(digits: &str, unit_fs: i128) -> Option<i128> {
+    if !digits.bytes().all(|b| b.is_ascii_digit()) {
+        return None;
+    }
+    // Keep at most 18 significant digits: unit_fs ≤ 8.64e19 so the product
+    // numerator · unit_fs stays below 8.64e37 < i128::MAX.
+    let keep = digits.len().min(18);
+    let (head, tail) = digits.split_at(keep);
+    let mut num: i128 = if head.is_empty() { 0 } else { head.parse().ok()? };
+    let mut den: i128 = 10i128.pow(keep as u32);
+    // Round on the first dropped digit (ties away from zero: the dropped
+    // digits are beyond 1e-18 of the unit, far below one femtosecond).
+    if let Some(first) = tail.bytes().next() {
+        if first >= b'5' {
+            num += 1;
+        }
+    }
+    if den == 0 {
+        den = 1;
+    }
+    let prod = num * unit_fs;
+    let q = prod / den;
+    let r = prod % den;
+    Some(if 2 * r >= den { q + 1 } else { q })
+}
+
+/// Writes `num/den` (0 ≤ num < den) as a decimal fraction with `places`
+/// digits after the point, rounded half up, returning the digits and a carry
+/// (true when rounding reached 1.0).
+pub fn fraction_digits(num: i128, den: i128, places: usize) -> (String, bool) {
+    let scale = 10i128.pow(places as u32);
+    // num < den ≤ ~8.7e19 and scale ≤ 1e18 keep the product below i128::MAX.
+    let prod = num * scale;
+    let mut q = prod / den;
+    if 2 * (prod % den) >= den {
+        q += 1;
+    }
+    if q >= scale {
+        return ("0".repeat(places), true);
+    }
+    (format!("{:0width$}", q, width = places), false)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn mul_is_exact_for_dyadic_fractions() {
+        assert_eq!(mul_f64_fs(0.5, FS_PER_DAY), Some(FS_PER_DAY / 2));
+        assert_eq!(mul_f64_fs(0.25, FS_PER_DAY), Some(FS_PER_DAY / 4));
+        assert_eq!(mul_f64_fs(-0.5, FS_PER_S), Some(-FS_PER_S / 2));
+        assert_eq!(mul_f64_fs(0.0, FS_PER_DAY), Some(0));
+        assert_eq!(mul_f64_fs(f64::NAN, FS_PER_DAY), None);
+        assert_eq!(mul_f64_fs(f64::INFINITY, FS_PER_DAY), None);
+    }
+
+    #[test]
+    fn shift_round_ties_to_even() {
+        assert_eq!(shift_round(5, 1), 2); // 2.5 → 2
+        assert_eq!(shift_round(7, 1), 4); // 3.5 → 4
+        assert_eq!(shift_round(-5, 1), -2);
+        assert_eq!(shift_round(6, 2), 2); // 1.5 → 2
+    }
+
+    #[test]
+    fn fraction_round_trip_is_bit_exact() {
+        // Identity: any f64 fraction of a day survives fs and back unchanged,
+        // for both 86 400 s and 86 401 s days.
+        let mut x: u64 = 0x1234_5678_9abc_def1;
+        for _ in 0..20_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            let frac = (x >> 11) as f64 / (1u64 << 53) as f64;
+            if frac < 1.0 / 16384.0 {
+                continue;
+            }
+            for day_s in [86_400i128, 86_401] {
+                let fs = mul_f64_fs(frac, day_s * FS_PER_S).unwrap();
+                let back = ratio_to_f64(fs, day_s * FS_PER_S);
+                assert_eq!(back.to_bits(), frac.to_bits(), "frac {frac:e} day {day_s}");
+            }
+        }
+    }
+
+    #[test]
+    fn ratio_is_correctly_rounded() {
+        assert_eq!(ratio_to_f64(1, 3), 1.0 / 3.0);
+        assert_eq!(ratio_to_f64(2, 3), 2.0 / 3.0);
+        assert_eq!(ratio_to_f64(FS_PER_S, FS_PER_S), 1.0);
+        assert_eq!(ratio_to_f64(-FS_PER_S / 4, FS_PER_S), -0.25);
+        assert_eq!(ratio_to_f64(0, FS_PER_S), 0.0);
+    }
+
+    #[test]
+    fn decimal_fraction_parsing() {
+        assert_eq!(decimal_fraction_to_fs("5", FS_PER_S), Some(FS_PER_S / 2));
+        assert_eq!(decimal_fraction_to_fs("000000000000001", FS_PER_S), Some(1));
+        assert_eq!(decimal_fraction_to_fs("0000000000000004", FS_PER_S), Some(0));
+        assert_eq!(decimal_fraction_to_fs("", FS_PER_S), Some(0));
+        assert_eq!(decimal_fraction_to_fs("12a", FS_PER_S), None);
+        assert_eq!(decimal_fraction_to_fs("5", FS_PER_DAY), Some(FS_PER_DAY / 2));
+    }
+
+    #[test]
+    fn fraction_digit_output() {
+        assert_eq!(fraction_digits(1, 3, 5), ("33333".to_string(), false));
+        assert_eq!(fraction_digits(2, 3, 5), ("66667".to_string(), false));
+        assert_eq!(fraction_digits(999_999, 1_000_000, 3), ("000".to_string(), true));
+    }
+}

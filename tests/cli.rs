@@ -1,0 +1,144 @@
+//! The `lapse` binary: exit codes and messages, never a panic.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+use polars::prelude::*;
+
+fn lapse(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_lapse")).args(args).output().expect("run lapse")
+}
+
+fn text(o: &Output) -> (String, String) {
+    (String::from_utf8_lossy(&o.stdout).into_owned(), String::from_utf8_lossy(&o.stderr).into_owned())
+}
+
+fn assert_clean_error(o: &Output, needle: &str) {
+    let (out, err) = text(o);
+    assert_eq!(o.status.code(), Some(2), "stdout: {out}\nstderr: {err}");
+    assert!(err.contains(needle), "expected '{needle}' in stderr: {err}");
+    assert!(!err.contains("panicked"), "panic: {err}");
+}
+
+fn tmpdir(name: &str) -> PathBuf {
+    let d = std::env::temp_dir().join(format!("lapse-cli-{}-{name}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&d);
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+#[test]
+fn time_converts_the_2016_leap_second() {
+    let o = lapse(&["time", "2016-12-31T23:59:60.5", "--to", "utc,tai,tt"]);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(0), "{err}");
+    assert!(out.contains("utc  2016-12-31T23:59:60.500000000000000"), "{out}");
+    // TAI − UTC = 36 s during the leap second (IERS Bulletin C 52).
+    assert!(out.contains("tai  2017-01-01T00:00:36.500000000000000"), "{out}");
+    assert!(out.contains("tt   2017-01-01T00:01:08.684000000000000"), "{out}");
+    // MJD fraction of the leap day is elapsed seconds / 86401.
+    assert!(out.contains("MJD 57753.999994213029941783"), "{out}");
+}
+
+#[test]
+fn time_reads_a_file_of_epochs() {
+    let d = tmpdir("epochs");
+    let f = d.join("epochs.txt");
+    std::fs::write(&f, "# comment\nmjd:58000.25\n2020-01-01T00:00:00 # new year\n").unwrap();
+    let o = lapse(&["time", "--file", f.to_str().unwrap(), "--from", "tt", "--to", "tdb"]);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(0), "{err}");
+    assert_eq!(out.lines().filter(|l| l.starts_with("tdb")).count(), 2, "{out}");
+}
+
+#[test]
+fn time_bad_inputs_are_clean_errors() {
+    assert_clean_error(&lapse(&["time", "yesterday"]), "cannot read epoch 'yesterday'");
+    assert_clean_error(&lapse(&["time", "2020-01-01", "--from", "tcx"]), "unknown time scale 'tcx'");
+    assert_clean_error(&lapse(&["time", "2020-01-01", "--to", "tt,xyz"]), "unknown time scale 'xyz'");
+    assert_clean_error(&lapse(&["time", "mjd:nan"]), "cannot read epoch 'mjd:nan'");
+    assert_clean_error(&lapse(&["time", "1968-05-01T00:00:00"]), "before 1972-01-01");
+    assert_clean_error(&lapse(&["time", "2040-01-01T00:00:00"]), "leap-second window");
+    assert_clean_error(&lapse(&["time", "2016-12-30T23:59:60"]), "second 60 exists only");
+    assert_clean_error(&lapse(&["time", "2020-01-01", "--observer-term-s", "NaN"]), "not a finite number");
+    assert_clean_error(&lapse(&["time", "--file", "/no/such/file.txt"]), "/no/such/file.txt");
+    assert_clean_error(&lapse(&["time"]), "no epochs given");
+    let d = tmpdir("badleap");
+    let leap = d.join("Leap_Second.dat");
+    std::fs::write(&leap, "#  File expires on 28 June 2027\n 41317.0 1 1 1972 10\n garbage\n").unwrap();
+    assert_clean_error(&lapse(&["time", "2020-01-01", "--leap-file", leap.to_str().unwrap()]), "line 3");
+    // Expired table extension is explicit.
+    let o = lapse(&["time", "2040-01-01T00:00:00", "--extend-leaps", "--to", "tai"]);
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o).1);
+    assert!(text(&o).0.contains("2040-01-01T00:00:37.000000000000000"));
+}
+
+fn write_epochs(path: &Path, ids: &[&str], days: &[i64], fracs: &[f64]) {
+    let mut df = df!(
+        "obs_id" => ids,
+        "mjd_day" => days,
+        "mjd_frac" => fracs,
+        "note" => ids.iter().map(|s| format!("note-{s}")).collect::<Vec<_>>(),
+    )
+    .unwrap();
+    let f = std::fs::File::create(path).unwrap();
+    ParquetWriter::new(f).finish(&mut df).unwrap();
+}
+
+fn write_pipeline(dir: &Path, body: &str) -> PathBuf {
+    let p = dir.join("p.toml");
+    std::fs::write(&p, body).unwrap();
+    p
+}
+
+#[test]
+fn timescales_pipeline_rejects_bad_rows_and_counts_them() {
+    let d = tmpdir("pipeline");
+    write_epochs(
+        &d.join("in.parquet"),
+        &["a", "b", "c", "d", "e"],
+        &[57_753, 58_000, 40_000, 58_001, 99_000],
+        &[86_400.5 / 86_401.0, 0.5, 0.1, f64::NAN, 0.2],
+    );
+    let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"in.parquet\"\n[output]\npath = \"out/out.parquet\"\n");
+    let o = lapse(&["run", p.to_str().unwrap()]);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(0), "{out}{err}");
+    let df = ParquetReader::new(std::fs::File::open(d.join("out/out.parquet")).unwrap()).finish().unwrap();
+    let rej = ParquetReader::new(std::fs::File::open(d.join("out/out.rejects.parquet")).unwrap()).finish().unwrap();
+    // No row disappears: out + rejects = in.
+    assert_eq!(df.height() + rej.height(), 5);
+    assert_eq!(df.height(), 2);
+    let reasons: Vec<String> = rej.column("reason").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
+    assert!(reasons.iter().any(|r| r.contains("before 1972")), "{reasons:?}");
+    assert!(reasons.iter().any(|r| r.contains("mjd_frac out of range")), "{reasons:?}");
+    assert!(reasons.iter().any(|r| r.contains("leap-second window")), "{reasons:?}");
+    // Pass-through column survives, computed columns present.
+    assert!(df.column("note").is_ok() && df.column("tdb_mjd_frac").is_ok() && df.column("tdb_minus_tt_s").is_ok());
+    // The leap-second row: TT − UTC label difference is 68.184 s.
+    let tt_utc = df.column("tt_minus_utc_s").unwrap().f64().unwrap().get(0).unwrap();
+    assert!((tt_utc - 68.184).abs() < 1e-12, "{tt_utc}");
+}
+
+#[test]
+fn pipeline_errors_are_clean() {
+    let d = tmpdir("pipeline-errors");
+    write_epochs(&d.join("in.parquet"), &["a", "a"], &[58_000, 58_001], &[0.1, 0.2]);
+    let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"in.parquet\"\n[output]\npath = \"o.parquet\"\n");
+    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "duplicate obs_id 'a'");
+    let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"in.parquet\"\nbogus = 1\n[output]\npath = \"o.parquet\"\n");
+    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "bogus");
+    let p = write_pipeline(&d, "kind = \"astrology\"\n");
+    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "unknown kind 'astrology'");
+    let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"missing.parquet\"\n[output]\npath = \"o.parquet\"\n");
+    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "missing.parquet");
+    std::fs::write(d.join("junk.parquet"), b"PAR1 this is not parquet").unwrap();
+    let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"junk.parquet\"\n[output]\npath = \"o.parquet\"\n");
+    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "junk.parquet");
+    // A mistyped column names file and column.
+    let mut df = df!("obs_id" => ["x"], "mjd_day" => ["58000"], "mjd_frac" => [0.5]).unwrap();
+    ParquetWriter::new(std::fs::File::create(d.join("typed.parquet")).unwrap()).finish(&mut df).unwrap();
+    let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"typed.parquet\"\n[output]\npath = \"o.parquet\"\n");
+    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "column 'mjd_day' has type");
+    assert_clean_error(&lapse(&["run", "/no/such/pipeline.toml"]), "/no/such/pipeline.toml");
+}
