@@ -33,6 +33,12 @@ enum Command {
         #[arg(long)]
         output: Option<PathBuf>,
     },
+    /// List the segments of SPK kernels: bodies, centres, frames, types, coverage.
+    Kernels {
+        /// SPK files.
+        #[arg(required = true)]
+        paths: Vec<PathBuf>,
+    },
     /// Convert epochs between time scales, printed to the femtosecond.
     Time {
         /// Epochs: YYYY-MM-DDThh:mm:ss[.f], mjd:DAYS[.f] (or a bare MJD), jd:DAYS[.f].
@@ -86,6 +92,11 @@ fn main() -> ExitCode {
 fn dispatch(cli: Cli) -> Result<ExitCode> {
     match cli.command {
         Command::Run { pipeline, output } => run(pipeline, output, cli.quiet),
+        Command::Kernels { paths } => {
+            let eph = lapse::ephemeris::Ephemeris::load(&paths)?;
+            print!("{}", eph.listing());
+            Ok(ExitCode::SUCCESS)
+        }
         Command::Time { epochs, from, to, file, leap_file, extend_leaps, observer_term_s } => {
             time(epochs, &from, &to, file, leap_file, extend_leaps, observer_term_s)
         }

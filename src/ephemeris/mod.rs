@@ -1,0 +1,195 @@
+//! Planetary and spacecraft states from JPL SPK kernels.
+//!
+//! Load one or more kernels with [`Ephemeris::load`], then ask for the
+//! barycentric state of any body at a TDB epoch ([`Ephemeris::state_ssb`]).
+//! Segments are searched as SPICE does: the most recently loaded kernel
+//! first, and within a kernel the last segment first (NAIF SPK Required
+//! Reading, "Loading Files / Precedence"). States are chained through the
+//! segments' centres down to the solar-system barycentre (NAIF 0).
+
+pub mod naif;
+mod spk;
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+pub use naif::{body_id, body_name};
+pub use spk::{ChebyshevData, Segment, SegmentData, SpkKernel, StateKm, TdbSeconds};
+
+use crate::time::{TimeScale, TimeScales};
+
+/// Errors of ephemeris queries.
+#[derive(Debug, thiserror::Error)]
+pub enum EphemerisError {
+    /// An unreadable, truncated or inconsistent kernel.
+    #[error("SPK kernel {path}: {message}")]
+    Kernel { path: PathBuf, message: String },
+    /// A body name no table knows.
+    #[error("unknown body '{name}': give a NAIF name (e.g. EARTH, JUPITER BARYCENTER) or integer code")]
+    UnknownBody { name: String },
+    /// No loaded kernel has a segment for the body.
+    #[error("no loaded kernel holds {body} (NAIF {id}); loaded: {loaded}")]
+    NoData { body: String, id: i32, loaded: String },
+    /// Segments exist but none covers the epoch.
+    #[error("{body} (NAIF {id}) relative to NAIF {center}: epoch {tdb} ({utc}) is outside the loaded coverage {coverage}")]
+    OutOfCoverage { body: String, id: i32, center: i32, tdb: String, utc: String, coverage: String },
+    /// The covering segment is of a type lapse does not evaluate.
+    #[error("{body} (NAIF {id}): SPK segment type {spk_type} in {path} is not supported (types 2 and 3 are)")]
+    UnsupportedType { body: String, id: i32, spk_type: i32, path: PathBuf },
+    /// An epoch in a scale other than TDB.
+    #[error("ephemeris epochs must be TDB, got {scale}")]
+    WrongScale { scale: String },
+    /// The chain of centres does not reach the barycentre.
+    #[error("the centres of {body} (NAIF {id}) loop or go deeper than 16 levels before reaching the solar-system barycentre")]
+    BrokenChain { body: String, id: i32 },
+}
+
+/// One or more SPK kernels, queried together.
+#[derive(Clone, Debug, Default)]
+pub struct Ephemeris {
+    kernels: Vec<SpkKernel>,
+}
+
+/// Calendar TDB text of an epoch (for messages).
+fn tdb_text(t: &TdbSeconds) -> String {
+    let fs = t.whole_s as i128 * crate::time::femto::FS_PER_S
+        + crate::time::femto::seconds_to_fs(t.frac_s).unwrap_or(0)
+        + crate::time::relativistic::J2000_FS;
+    crate::time::Epoch::from_uniform_fs(TimeScale::Tdb, fs).map(|e| e.to_string()).unwrap_or_else(|_| format!("{} s TDB past J2000", t.approx_s()))
+}
+
+/// Calendar UTC text of a TDB epoch, geocentric (for messages).
+fn utc_text(t: &TdbSeconds) -> String {
+    let ts = TimeScales::new(crate::time::LeapSecondTable::builtin().with_policy(crate::time::ExpiryPolicy::ExtendLastOffset));
+    let fs = t.whole_s as i128 * crate::time::femto::FS_PER_S
+        + crate::time::femto::seconds_to_fs(t.frac_s).unwrap_or(0)
+        + crate::time::relativistic::J2000_FS;
+    crate::time::Epoch::from_uniform_fs(TimeScale::Tdb, fs)
+        .and_then(|e| ts.convert(e, TimeScale::Utc, 0.0))
+        .map(|e| e.to_string())
+        .unwrap_or_else(|_| "UTC not representable".to_string())
+}
+
+fn span_text(a: f64, b: f64) -> String {
+    format!("{} … {}", tdb_text(&TdbSeconds::new(a.floor() as i64, a - a.floor())), tdb_text(&TdbSeconds::new(b.floor() as i64, b - b.floor())))
+}
+
+impl Ephemeris {
+    /// Loads kernels in order; later ones take precedence.
+    pub fn load<P: AsRef<Path>>(paths: &[P]) -> Result<Self, EphemerisError> {
+        let mut kernels = Vec::with_capacity(paths.len());
+        for p in paths {
+            let k = SpkKernel::load(p.as_ref())?;
+            tracing::info!(path = %p.as_ref().display(), segments = k.segments.len(), "loaded SPK kernel");
+            kernels.push(k);
+        }
+        Ok(Self { kernels })
+    }
+
+    /// From already parsed kernels.
+    pub fn from_kernels(kernels: Vec<SpkKernel>) -> Self {
+        Self { kernels }
+    }
+
+    /// The loaded kernels.
+    pub fn kernels(&self) -> &[SpkKernel] {
+        &self.kernels
+    }
+
+    /// The segment that answers `target` at `t`, by SPICE precedence.
+    fn segment_for(&self, target: i32, t: &TdbSeconds) -> Result<(&Segment, &Path), EphemerisError> {
+        let mut any = false;
+        for k in self.kernels.iter().rev() {
+            for s in k.segments.iter().rev().filter(|s| s.target == target) {
+                any = true;
+                if s.covers(t) {
+                    return Ok((s, &k.path));
+                }
+            }
+        }
+        if !any {
+            return Err(EphemerisError::NoData { body: body_name(target), id: target, loaded: self.loaded_text() });
+        }
+        let mut coverage = String::new();
+        for k in &self.kernels {
+            for s in k.segments.iter().filter(|s| s.target == target) {
+                let _ = write!(coverage, "[{} wrt NAIF {} in {}] ", span_text(s.start_s, s.end_s), s.center, k.path.display());
+            }
+        }
+        let center = self.kernels.iter().flat_map(|k| &k.segments).find(|s| s.target == target).map(|s| s.center).unwrap_or(0);
+        Err(EphemerisError::OutOfCoverage {
+            body: body_name(target),
+            id: target,
+            center,
+            tdb: tdb_text(t),
+            utc: utc_text(t),
+            coverage: coverage.trim_end().to_string(),
+        })
+    }
+
+    fn loaded_text(&self) -> String {
+        if self.kernels.is_empty() {
+            return "no kernels".into();
+        }
+        self.kernels.iter().map(|k| k.path.display().to_string()).collect::<Vec<_>>().join(", ")
+    }
+
+    /// State of `target` relative to its segment's centre, and that centre.
+    pub fn state_wrt_center(&self, target: i32, t: &TdbSeconds) -> Result<(StateKm, i32), EphemerisError> {
+        let (seg, path) = self.segment_for(target, t)?;
+        match seg.evaluate(t) {
+            Some(s) => Ok((s, seg.center)),
+            None => Err(EphemerisError::UnsupportedType { body: body_name(target), id: target, spk_type: seg.spk_type, path: path.to_path_buf() }),
+        }
+    }
+
+    /// Barycentric (NAIF 0) state of a body at a TDB epoch, ICRF axes.
+    ///
+    /// # Accuracy
+    /// That of the kernel; evaluation adds < 0.1 mm (see [`Segment::evaluate`]).
+    ///
+    /// # Errors
+    /// Unknown body, no data, epoch outside coverage (naming the epoch in TDB
+    /// and UTC and the loaded coverage), unsupported segment type.
+    pub fn state_ssb(&self, target: i32, t: &TdbSeconds) -> Result<StateKm, EphemerisError> {
+        let mut total = StateKm::default();
+        let mut body = target;
+        for _ in 0..16 {
+            if body == 0 {
+                return Ok(total);
+            }
+            let (s, center) = self.state_wrt_center(body, t)?;
+            total = total + s;
+            body = center;
+        }
+        Err(EphemerisError::BrokenChain { body: body_name(target), id: target })
+    }
+
+    /// Barycentric state of a body given by name or code.
+    pub fn state_ssb_named(&self, name: &str, t: &TdbSeconds) -> Result<StateKm, EphemerisError> {
+        let id = body_id(name, &[]).ok_or_else(|| EphemerisError::UnknownBody { name: name.into() })?;
+        self.state_ssb(id, t)
+    }
+
+    /// A human-readable listing of every loaded kernel's segments: target,
+    /// centre, frame, SPK type and coverage (TDB).
+    pub fn listing(&self) -> String {
+        let mut out = String::new();
+        for k in &self.kernels {
+            let _ = writeln!(out, "{}  ({} segments)", k.path.display(), k.segments.len());
+            let _ = writeln!(out, "  {:<28} {:<28} {:>6} {:>5}  coverage (TDB)", "body", "relative to", "frame", "type");
+            for s in &k.segments {
+                let _ = writeln!(
+                    out,
+                    "  {:<28} {:<28} {:>6} {:>5}  {}",
+                    format!("{} ({})", body_name(s.target), s.target),
+                    format!("{} ({})", body_name(s.center), s.center),
+                    s.frame,
+                    s.spk_type,
+                    span_text(s.start_s, s.end_s)
+                );
+            }
+        }
+        out
+    }
+}

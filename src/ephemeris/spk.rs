@@ -1,0 +1,351 @@
+//! SPK kernels: segments read through anise's DAF reader, Chebyshev data
+//! (types 2 and 3) evaluated here on a two-part TDB epoch.
+//!
+//! anise parses and validates the DAF container (file record, endianness,
+//! summary records); we copy each segment's doubles and evaluate them
+//! ourselves, because anise's query epoch is an `f64` of TDB seconds past
+//! J2000, which resolves ≈ 0.1 µs in this century (≈ 3.6 mm of Earth
+//! motion; `REFERENCE.md` §10), above the 1 mm this tool needs.
+//!
+//! # References
+//! NAIF SPK Required Reading (`spk.req`), "Segments — The Fundamental SPK
+//! Building Blocks", types 2 and 3 (Chebyshev position; position and
+//! velocity), and the SPICE routines SPKR02/SPKE02, SPKR03/SPKE03 for
+//! record selection and evaluation. NAIF DAF Required Reading for the
+//! container.
+
+use std::path::{Path, PathBuf};
+
+use anise::naif::daf::NAIFSummaryRecord;
+use anise::naif::spk::summary::SPKSummaryRecord;
+
+use super::EphemerisError;
+
+/// A TDB epoch as whole seconds past J2000.0 TDB plus a fraction in [0, 1).
+///
+/// Two parts keep sub-nanosecond resolution (an `f64` of seconds past J2000
+/// resolves ≈ 0.1 µs in this century).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct TdbSeconds {
+    /// Whole seconds past J2000.0 TDB.
+    pub whole_s: i64,
+    /// Fraction of a second, in [0, 1).
+    pub frac_s: f64,
+}
+
+impl TdbSeconds {
+    /// From whole seconds and any fraction (renormalised to [0, 1)).
+    pub fn new(whole_s: i64, frac_s: f64) -> Self {
+        let fl = frac_s.floor();
+        Self { whole_s: whole_s + fl as i64, frac_s: frac_s - fl }
+    }
+
+    /// From a lapse epoch, which must be in TDB.
+    pub fn from_epoch(e: &crate::time::Epoch) -> Result<Self, EphemerisError> {
+        if e.scale() != crate::time::TimeScale::Tdb {
+            return Err(EphemerisError::WrongScale { scale: e.scale().to_string() });
+        }
+        let (w, f) = e.seconds_since_j2000();
+        Ok(Self { whole_s: w, frac_s: f })
+    }
+
+    /// This epoch shifted by `delta_s` seconds.
+    pub fn plus_s(&self, delta_s: f64) -> Self {
+        let d = delta_s.trunc();
+        Self::new(self.whole_s + d as i64, self.frac_s + (delta_s - d))
+    }
+
+    /// `self − x` in seconds, for a reference time `x_s` given as an `f64`
+    /// (segment boundaries, record midpoints), without losing the fraction:
+    /// the integer parts are subtracted exactly first.
+    pub fn minus_f64_s(&self, x_s: f64) -> f64 {
+        let xi = x_s.trunc();
+        ((self.whole_s as f64) - xi) + (self.frac_s - (x_s - xi))
+    }
+
+    /// Approximate single `f64` (for messages and coarse searches only).
+    pub fn approx_s(&self) -> f64 {
+        self.whole_s as f64 + self.frac_s
+    }
+}
+
+/// Position (km) and velocity (km/s) of a target relative to a centre,
+/// ICRF axes, TDB.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct StateKm {
+    pub position_km: [f64; 3],
+    pub velocity_km_s: [f64; 3],
+}
+
+impl std::ops::Add for StateKm {
+    type Output = StateKm;
+    fn add(self, o: StateKm) -> StateKm {
+        StateKm {
+            position_km: std::array::from_fn(|i| self.position_km[i] + o.position_km[i]),
+            velocity_km_s: std::array::from_fn(|i| self.velocity_km_s[i] + o.velocity_km_s[i]),
+        }
+    }
+}
+
+/// Chebyshev data of a type 2 or 3 segment.
+#[derive(Clone, Debug)]
+pub struct ChebyshevData {
+    /// Start of the first record, TDB seconds past J2000.
+    pub init_s: f64,
+    /// Length of each record's interval, s.
+    pub interval_s: f64,
+    /// Doubles per record.
+    pub record_len: usize,
+    /// Number of records.
+    pub n_records: usize,
+    /// Coefficients per component (degree + 1).
+    pub n_coeffs: usize,
+    /// Type 3 carries velocity coefficients too.
+    pub with_velocity: bool,
+    /// The records: [mid, radius, x…, y…, z… (, vx…, vy…, vz…)] each.
+    pub records: Vec<f64>,
+}
+
+/// The data of one segment.
+#[derive(Clone, Debug)]
+pub enum SegmentData {
+    /// SPK types 2 and 3.
+    Chebyshev(ChebyshevData),
+    /// A type lapse does not evaluate (yet): queries name it in the error.
+    Unsupported,
+}
+
+/// One SPK segment.
+#[derive(Clone, Debug)]
+pub struct Segment {
+    pub target: i32,
+    pub center: i32,
+    pub frame: i32,
+    pub spk_type: i32,
+    /// Coverage, TDB seconds past J2000.
+    pub start_s: f64,
+    pub end_s: f64,
+    pub data: SegmentData,
+}
+
+/// Maximum Chebyshev degree we accept (DE kernels use ≤ 13; guards corrupt files).
+const MAX_COEFFS: usize = 64;
+
+impl Segment {
+    /// True when `t` lies inside the segment's coverage (inclusive).
+    pub fn covers(&self, t: &TdbSeconds) -> bool {
+        t.minus_f64_s(self.start_s) >= 0.0 && t.minus_f64_s(self.end_s) <= 0.0
+    }
+
+    /// State of `target` relative to `center` at `t` (which must be covered).
+    ///
+    /// # Accuracy
+    /// Evaluates the stored Chebyshev expansion to the precision of f64
+    /// arithmetic (≈ 1e-16 relative, < 0.1 mm for planets); time enters as
+    /// `(t − mid)/radius` formed from two parts, so the time argument loses
+    /// nothing. DE421 agrees with jplephem 2.24 to ≤ 1 mm over 1950–2050
+    /// (`tests/geometry_reference.rs`).
+    ///
+    /// # References
+    /// NAIF SPK Required Reading, types 2 and 3; SPICE SPKE02 (velocity as the
+    /// derivative of the position expansion) and SPKE03.
+    pub fn evaluate(&self, t: &TdbSeconds) -> Option<StateKm> {
+        let SegmentData::Chebyshev(c) = &self.data else { return None };
+        let since_init = t.minus_f64_s(c.init_s);
+        let mut idx = (since_init / c.interval_s).floor();
+        if idx < 0.0 {
+            idx = 0.0;
+        }
+        let mut idx = idx as usize;
+        if idx >= c.n_records {
+            idx = c.n_records - 1;
+        }
+        let rec = &c.records[idx * c.record_len..(idx + 1) * c.record_len];
+        let (mid, radius) = (rec[0], rec[1]);
+        let tau = t.minus_f64_s(mid) / radius;
+        let n = c.n_coeffs;
+        // Chebyshev polynomials T_k(τ) and their derivatives dT_k/dτ.
+        let mut tk = [0.0f64; MAX_COEFFS];
+        let mut dk = [0.0f64; MAX_COEFFS];
+        tk[0] = 1.0;
+        if n > 1 {
+            tk[1] = tau;
+            dk[1] = 1.0;
+        }
+        for k in 2..n {
+            tk[k] = 2.0 * tau * tk[k - 1] - tk[k - 2];
+            dk[k] = 2.0 * tk[k - 1] + 2.0 * tau * dk[k - 1] - dk[k - 2];
+        }
+        let mut s = StateKm::default();
+        for axis in 0..3 {
+            let coef = &rec[2 + axis * n..2 + (axis + 1) * n];
+            let mut p = 0.0;
+            let mut v = 0.0;
+            // Sum from the highest degree down (smallest terms first).
+            for k in (0..n).rev() {
+                p += coef[k] * tk[k];
+                v += coef[k] * dk[k];
+            }
+            s.position_km[axis] = p;
+            s.velocity_km_s[axis] = v / radius;
+            if c.with_velocity {
+                let vcoef = &rec[2 + (3 + axis) * n..2 + (4 + axis) * n];
+                let mut vv = 0.0;
+                for k in (0..n).rev() {
+                    vv += vcoef[k] * tk[k];
+                }
+                s.velocity_km_s[axis] = vv;
+            }
+        }
+        Some(s)
+    }
+}
+
+/// A loaded SPK kernel.
+#[derive(Clone, Debug)]
+pub struct SpkKernel {
+    pub path: PathBuf,
+    pub segments: Vec<Segment>,
+}
+
+fn kernel_err(path: &Path, message: impl Into<String>) -> EphemerisError {
+    EphemerisError::Kernel { path: path.to_path_buf(), message: message.into() }
+}
+
+impl SpkKernel {
+    /// Loads an SPK file.
+    ///
+    /// # Errors
+    /// [`EphemerisError::Kernel`] naming the file for anything unreadable,
+    /// truncated or inconsistent.
+    pub fn load(path: &Path) -> Result<Self, EphemerisError> {
+        let bytes = std::fs::read(path).map_err(|e| kernel_err(path, e.to_string()))?;
+        Self::parse(&bytes, path)
+    }
+
+    /// Parses SPK bytes; `path` names the file in errors.
+    pub fn parse(bytes: &[u8], path: &Path) -> Result<Self, EphemerisError> {
+        // anise's DAF reader is careful, but a crafted file must never take the
+        // process down: contain any panic as an error.
+        let owned = bytes.to_vec();
+        let parsed = std::panic::catch_unwind(move || anise::naif::SPK::parse(owned.as_slice()));
+        let daf = match parsed {
+            Ok(Ok(d)) => d,
+            Ok(Err(e)) => return Err(kernel_err(path, format!("not a readable SPK file: {e}"))),
+            Err(_) => return Err(kernel_err(path, "not a readable SPK file (the DAF reader failed)")),
+        };
+        let mut summaries: Vec<SPKSummaryRecord> = Vec::new();
+        for block in daf.iter_summary_blocks() {
+            let block = block.map_err(|e| kernel_err(path, format!("corrupt summary record: {e}")))?;
+            summaries.extend(block.iter().filter(|s| !s.is_empty()).copied());
+        }
+        if summaries.is_empty() {
+            return Err(kernel_err(path, "no segments"));
+        }
+        let data = &daf.bytes;
+        let mut segments = Vec::with_capacity(summaries.len());
+        for (k, s) in summaries.iter().enumerate() {
+            let (a, b) = (s.start_idx as i64, s.end_idx as i64);
+            if a < 1 || b < a || (b as usize) * 8 > data.len() {
+                return Err(kernel_err(path, format!("segment {k} (target {}) points outside the file (doubles {a}..{b}, file {} bytes): truncated?", s.target_id, data.len())));
+            }
+            let raw = &data[(a as usize - 1) * 8..b as usize * 8];
+            let doubles: Vec<f64> = raw.chunks_exact(8).map(|c| f64::from_ne_bytes(c.try_into().expect("8 bytes"))).collect();
+            if !s.start_epoch_et_s.is_finite() || !s.end_epoch_et_s.is_finite() || s.end_epoch_et_s < s.start_epoch_et_s {
+                return Err(kernel_err(path, format!("segment {k} (target {}) has a bad coverage", s.target_id)));
+            }
+            let data = match s.data_type_i {
+                2 | 3 => SegmentData::Chebyshev(parse_chebyshev(&doubles, s.data_type_i == 3).map_err(|m| kernel_err(path, format!("segment {k} (target {}, type {}): {m}", s.target_id, s.data_type_i)))?),
+                _ => SegmentData::Unsupported,
+            };
+            segments.push(Segment {
+                target: s.target_id,
+                center: s.center_id,
+                frame: s.frame_id,
+                spk_type: s.data_type_i,
+                start_s: s.start_epoch_et_s,
+                end_s: s.end_epoch_et_s,
+                data,
+            });
+        }
+        Ok(Self { path: path.to_path_buf(), segments })
+    }
+}
+
+fn parse_chebyshev(d: &[f64], with_velocity: bool) -> Result<ChebyshevData, String> {
+    if d.len() < 4 + 5 {
+        return Err(format!("only {} doubles", d.len()));
+    }
+    let t = &d[d.len() - 4..];
+    let (init_s, interval_s, rsize, n) = (t[0], t[1], t[2], t[3]);
+    if !init_s.is_finite() || !(interval_s.is_finite() && interval_s > 0.0) {
+        return Err(format!("bad directory: init {init_s}, interval {interval_s}"));
+    }
+    if !(rsize.is_finite() && rsize >= 5.0 && rsize.fract() == 0.0 && n.is_finite() && n >= 1.0 && n.fract() == 0.0) {
+        return Err(format!("bad directory: record size {rsize}, records {n}"));
+    }
+    let (record_len, n_records) = (rsize as usize, n as usize);
+    let comps = if with_velocity { 6 } else { 3 };
+    if (record_len - 2) % comps != 0 {
+        return Err(format!("record size {record_len} is not 2 + {comps}·(degree + 1)"));
+    }
+    let n_coeffs = (record_len - 2) / comps;
+    if n_coeffs > MAX_COEFFS {
+        return Err(format!("degree {} exceeds {}", n_coeffs - 1, MAX_COEFFS - 1));
+    }
+    if record_len.checked_mul(n_records).map(|x| x + 4) != Some(d.len()) {
+        return Err(format!("{} records of {record_len} doubles do not fill the segment's {} doubles", n_records, d.len()));
+    }
+    let records = d[..record_len * n_records].to_vec();
+    if records.iter().any(|x| !x.is_finite()) {
+        return Err("non-finite coefficient".into());
+    }
+    for r in records.chunks_exact(record_len) {
+        if !(r[1] > 0.0) {
+            return Err(format!("record radius {} is not positive", r[1]));
+        }
+    }
+    Ok(ChebyshevData { init_s, interval_s, record_len, n_records, n_coeffs, with_velocity, records })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn two_part_time_arithmetic() {
+        let t = TdbSeconds::new(100, 1.25);
+        assert_eq!((t.whole_s, t.frac_s), (101, 0.25));
+        let u = t.plus_s(-0.5);
+        assert_eq!((u.whole_s, u.frac_s), (100, 0.75));
+        // minus keeps the fraction for large times.
+        let big = TdbSeconds::new(800_000_000, 1e-10);
+        assert_eq!(big.minus_f64_s(800_000_000.0), 1e-10);
+    }
+
+    #[test]
+    fn chebyshev_of_a_line_is_exact() {
+        // One type-2 record: x = 3 + 2τ, y = −1, z = τ² expressed as
+        // T2 = 2τ² − 1 → τ² = (T0 + T2)/2.
+        let rec = vec![10.0, 5.0, 3.0, 2.0, 0.0, -1.0, 0.0, 0.0, 0.5, 0.0, 0.5];
+        let mut d = rec.clone();
+        d.extend([5.0, 10.0, rec.len() as f64, 1.0]);
+        let c = parse_chebyshev(&d, false).unwrap();
+        let seg = Segment { target: 1, center: 0, frame: 1, spk_type: 2, start_s: 5.0, end_s: 15.0, data: SegmentData::Chebyshev(c) };
+        let t = TdbSeconds::new(12, 0.5); // τ = 0.5
+        let s = seg.evaluate(&t).unwrap();
+        assert_eq!(s.position_km, [4.0, -1.0, 0.25]);
+        // d/dt = d/dτ / radius: x' = 2/5, z' = 2τ/5.
+        assert_eq!(s.velocity_km_s, [0.4, 0.0, 0.2]);
+        assert!(seg.covers(&t));
+        assert!(!seg.covers(&TdbSeconds::new(15, 1e-9)));
+    }
+
+    #[test]
+    fn corrupt_directories_are_errors() {
+        assert!(parse_chebyshev(&[0.0; 8], false).is_err());
+        let mut d = vec![10.0, 5.0, 3.0, 2.0, 0.0, -1.0, 0.0, 0.0, 0.5, 0.0, 0.5];
+        d.extend([5.0, 10.0, 11.0, 2.0]); // claims 2 records, holds 1
+        assert!(parse_chebyshev(&d, false).is_err());
+    }
+}
