@@ -8,6 +8,7 @@
 //! rules and licensed practice take precedence.
 
 pub mod constants;
+pub mod earth;
 pub mod ephemeris;
 pub mod io;
 pub mod pipeline;

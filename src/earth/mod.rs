@@ -1,0 +1,168 @@
+//! Where a station is: Earth orientation (IERS EOP), the ITRS → GCRS
+//! rotation, station catalogues, and station states in the GCRS and BCRS
+//! with the topocentric part of TDB − TT.
+
+pub mod eop;
+pub mod rotation;
+pub mod station;
+
+use nalgebra::Vector3;
+
+pub use eop::{EopError, EopTable, EopValues};
+pub use rotation::{CIP_GRID_STEP_DAY, CipGrid, CipXys, TerrestrialToCelestial, itrs_to_gcrs};
+pub use station::{Station, StationCatalog, StationError};
+
+use crate::ephemeris::{Ephemeris, EphemerisError, StateKm, TdbSeconds};
+use crate::time::femto::{FS_PER_DAY, ratio_to_f64, seconds_to_fs};
+use crate::time::{Epoch, TimeError, TimeScale, TimeScales};
+
+/// Speed of light, m/s.
+const C_M_S: f64 = crate::time::clock_rate::C_M_S;
+
+/// Errors of station-state computations.
+#[derive(Debug, thiserror::Error)]
+pub enum EarthError {
+    #[error(transparent)]
+    Eop(#[from] EopError),
+    #[error(transparent)]
+    Ephemeris(#[from] EphemerisError),
+    #[error(transparent)]
+    Station(#[from] StationError),
+    #[error("{context}: {source}")]
+    Time { context: String, source: TimeError },
+}
+
+/// Where X, Y, s come from.
+#[derive(Clone, Debug)]
+pub enum CipSource {
+    /// Evaluate the IAU 2006/2000A series at every call (slow, reference).
+    Direct,
+    /// Interpolate on a precomputed grid; falls back to direct outside it.
+    Grid(CipGrid),
+}
+
+/// The state of a station at one UTC epoch.
+#[derive(Clone, Copy, Debug)]
+pub struct StationState {
+    /// The event in TT.
+    pub tt: Epoch,
+    /// The event in TDB at the station (topocentric term included).
+    pub tdb: Epoch,
+    /// Topocentric part of TDB − TT, v_E · x_GCRS / c², seconds.
+    pub observer_term_s: f64,
+    /// Earth-orientation values used.
+    pub eop: EopValues,
+    /// GCRS position (m) and velocity (m/s).
+    pub gcrs_position_m: Vector3<f64>,
+    pub gcrs_velocity_m_s: Vector3<f64>,
+    /// Barycentric state of the Earth at `tdb` (km, km/s).
+    pub earth_ssb: StateKm,
+    /// BCRS position (m) and velocity (m/s) of the station, first order:
+    /// x_E + x_GCRS.
+    pub bcrs_position_m: Vector3<f64>,
+    pub bcrs_velocity_m_s: Vector3<f64>,
+}
+
+/// Earth orientation and time scales for station computations.
+#[derive(Clone, Debug)]
+pub struct EarthModel {
+    pub time: TimeScales,
+    pub eop: EopTable,
+    pub cip: CipSource,
+}
+
+/// Two-part Julian Date (2400000.5 + MJD day, fraction) of a uniform epoch.
+fn jd_parts(e: &Epoch) -> (f64, f64) {
+    (2_400_000.5 + e.mjd_day() as f64, ratio_to_f64(e.fs_of_day(), FS_PER_DAY))
+}
+
+impl EarthModel {
+    /// With direct (series) evaluation of the celestial pole.
+    pub fn new(time: TimeScales, eop: EopTable) -> Self {
+        Self { time, eop, cip: CipSource::Direct }
+    }
+
+    /// Switch to a grid of X, Y, s covering a UTC span (MJD), for batches.
+    pub fn with_cip_grid(mut self, first_mjd_utc: f64, last_mjd_utc: f64) -> Self {
+        // TT − UTC < 80 s: pad by a day either side.
+        self.cip = CipSource::Grid(CipGrid::new(first_mjd_utc - 1.0, last_mjd_utc + 1.0, CIP_GRID_STEP_DAY));
+        self
+    }
+
+    fn cip_at(&self, tt: &Epoch) -> CipXys {
+        let (j1, j2) = jd_parts(tt);
+        match &self.cip {
+            CipSource::Grid(g) => {
+                let mjd = tt.mjd_day() as f64 + j2;
+                g.at(mjd).unwrap_or_else(|| CipXys::direct(j1, j2))
+            }
+            CipSource::Direct => CipXys::direct(j1, j2),
+        }
+    }
+
+    /// The ITRS → GCRS rotation at a UTC epoch, with the EOP values used.
+    ///
+    /// # Accuracy
+    /// See [`itrs_to_gcrs`] and [`EopTable::at_utc`].
+    pub fn rotation_at(&self, utc: &Epoch) -> Result<(TerrestrialToCelestial, EopValues, Epoch), EarthError> {
+        let eop = self.eop.at_utc(self.time.leap_seconds(), utc)?;
+        let tt = self.time.convert(*utc, TimeScale::Tt, 0.0).map_err(|source| EarthError::Time { context: "UTC → TT".into(), source })?;
+        let tai_fs = self.time.tt_fs(utc, 0.0).map_err(|source| EarthError::Time { context: "UTC → TAI".into(), source })? - crate::time::TT_MINUS_TAI_FS;
+        let ut1_fs = tai_fs + seconds_to_fs(eop.ut1_minus_tai_s).unwrap_or(0);
+        let ut1 = Epoch::from_uniform_fs(TimeScale::Ut1, ut1_fs).map_err(|source| EarthError::Time { context: "UT1".into(), source })?;
+        let r = itrs_to_gcrs(jd_parts(&tt), jd_parts(&ut1), self.cip_at(&tt), &eop);
+        Ok((r, eop, tt))
+    }
+
+    /// GCRS position (m) and velocity (m/s) of a station at a UTC epoch.
+    pub fn station_gcrs(&self, station: &Station, utc: &Epoch) -> Result<(Vector3<f64>, Vector3<f64>, EopValues, Epoch), EarthError> {
+        let (r, eop, tt) = self.rotation_at(utc)?;
+        let mjd = utc.mjd_day() as f64 + ratio_to_f64(utc.fs_of_day(), FS_PER_DAY);
+        let x = Vector3::from(station.itrf_at_m(mjd));
+        let (p, v) = r.apply(&x);
+        Ok((p, v, eop, tt))
+    }
+
+    /// The full station state at a UTC epoch: GCRS, topocentric TDB − TT,
+    /// TDB at the station, and the BCRS position and velocity.
+    ///
+    /// The Earth is evaluated at the station's own TDB (topocentric term
+    /// included; leaving it out moves the Earth by up to ≈ 6 cm).
+    ///
+    /// # Accuracy
+    /// GCRS: see [`Self::rotation_at`]. BCRS = x_E + x_GCRS to first order: the
+    /// neglected terms of order (v_E/c)²·|x_GCRS| and (U/c²)·|x_GCRS| amount to
+    /// a few centimetres (IERS Conventions 2010, ch. 11, eq. 11.19). Against
+    /// astropy 7 (`get_body_barycentric` + `get_gcrs_posvel`) ≤ 2 cm.
+    ///
+    /// # References
+    /// IERS Conventions 2010, ch. 10, eq. 10.9 (topocentric TDB − TT term
+    /// v_E · x / c²) and ch. 11 (BCRS position of a terrestrial station).
+    pub fn station_state(&self, eph: &Ephemeris, station: &Station, utc: &Epoch) -> Result<StationState, EarthError> {
+        let (x_gcrs, v_gcrs, eop, tt) = self.station_gcrs(station, utc)?;
+        let geo_tdb = self.time.convert(tt, TimeScale::Tdb, 0.0).map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })?;
+        let earth_geo = eph.state_ssb(399, &TdbSeconds::from_epoch(&geo_tdb)?)?;
+        let v_e = Vector3::from(earth_geo.velocity_km_s) * 1e3;
+        let observer_term_s = v_e.dot(&x_gcrs) / (C_M_S * C_M_S);
+        let tdb = self.time.convert(tt, TimeScale::Tdb, observer_term_s).map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })?;
+        let earth = if tdb == geo_tdb { earth_geo } else { eph.state_ssb(399, &TdbSeconds::from_epoch(&tdb)?)? };
+        let bcrs_position_m = Vector3::from(earth.position_km) * 1e3 + x_gcrs;
+        let bcrs_velocity_m_s = Vector3::from(earth.velocity_km_s) * 1e3 + v_gcrs;
+        Ok(StationState {
+            tt,
+            tdb,
+            observer_term_s,
+            eop,
+            gcrs_position_m: x_gcrs,
+            gcrs_velocity_m_s: v_gcrs,
+            earth_ssb: earth,
+            bcrs_position_m,
+            bcrs_velocity_m_s,
+        })
+    }
+
+    /// UT1 − UTC at a UTC epoch, seconds.
+    pub fn ut1_minus_utc_s(&self, utc: &Epoch) -> Result<f64, EarthError> {
+        Ok(self.eop.at_utc(self.time.leap_seconds(), utc)?.ut1_minus_utc_s)
+    }
+}
