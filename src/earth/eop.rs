@@ -1,7 +1,9 @@
 //! IERS Earth-orientation parameters: reading and interpolation.
 //!
 //! Two daily series at 0h UTC are read: IERS Rapid Service `finals2000A.all`
-//! (Bulletin A columns, with I/P flags for final and predicted values) and
+//! (the Bulletin B final values where the file has them, otherwise the
+//! Bulletin A rapid values with their I/P flags for observed and predicted;
+//! A and B differ by up to ≈ 0.1 ms in UT1 in past years) and
 //! the IERS EOP 20 C04 series `eopc04.1962-now`. Values are interpolated with
 //! 4-point Lagrange polynomials (the method of the IERS interpolation routine
 //! recommended in IERS Conventions 2010, ch. 5.5.1 / 8); UT1 is interpolated
@@ -52,6 +54,8 @@ pub struct EopRow {
     pub predicted: bool,
     /// True when dX, dY were given (false: zero assumed).
     pub has_pole_offsets: bool,
+    /// True when the values are IERS final ones (Bulletin B / C04).
+    pub is_final: bool,
 }
 
 /// Interpolated Earth-orientation values at one UTC epoch.
@@ -225,8 +229,10 @@ fn whole_mjd(path: &Path, line: usize, s: &str) -> Result<i64, EopError> {
 }
 
 /// IERS Rapid Service `finals2000A` layout (ReadMe.finals2000A): MJD in
-/// columns 8–15, PM flag 17, x_p 19–27 (″), y_p 38–46 (″), UT1 flag 58,
-/// UT1 − UTC 59–68 (s), nutation flag 96, dX 98–106 (mas), dY 117–125 (mas).
+/// columns 8–15; Bulletin A: PM flag 17, x_p 19–27 (″), y_p 38–46 (″), UT1
+/// flag 58, UT1 − UTC 59–68 (s), dX 98–106 (mas), dY 117–125 (mas);
+/// Bulletin B: x_p 135–144, y_p 145–154, UT1 − UTC 155–165, dX 166–175, dY
+/// 176–185. B values are used where present.
 fn parse_finals(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
     let mut rows = Vec::new();
     let mut ended_at: Option<usize> = None;
@@ -253,17 +259,33 @@ fn parse_finals(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
         }
         let flag_pm = field(line, 17, 17);
         let flag_ut = field(line, 58, 58);
-        let (dxs, dys) = (field(line, 98, 106), field(line, 117, 125));
-        let has_pole_offsets = !dxs.is_empty() && !dys.is_empty();
-        let row = EopRow {
-            mjd,
-            x_p_arcsec: num(path, lineno, xs, "x_p")?,
-            y_p_arcsec: num(path, lineno, ys, "y_p")?,
-            ut1_minus_utc_s: num(path, lineno, us, "UT1-UTC")?,
-            dx_mas: if has_pole_offsets { num(path, lineno, dxs, "dX")? } else { 0.0 },
-            dy_mas: if has_pole_offsets { num(path, lineno, dys, "dY")? } else { 0.0 },
-            predicted: flag_pm == "P" || flag_ut == "P",
-            has_pole_offsets,
+        let (xb, yb, ub, dxb, dyb) = (field(line, 135, 144), field(line, 145, 154), field(line, 155, 165), field(line, 166, 175), field(line, 176, 185));
+        let row = if !(xb.is_empty() || yb.is_empty() || ub.is_empty() || dxb.is_empty() || dyb.is_empty()) {
+            EopRow {
+                mjd,
+                x_p_arcsec: num(path, lineno, xb, "x_p (Bulletin B)")?,
+                y_p_arcsec: num(path, lineno, yb, "y_p (Bulletin B)")?,
+                ut1_minus_utc_s: num(path, lineno, ub, "UT1-UTC (Bulletin B)")?,
+                dx_mas: num(path, lineno, dxb, "dX (Bulletin B)")?,
+                dy_mas: num(path, lineno, dyb, "dY (Bulletin B)")?,
+                predicted: false,
+                has_pole_offsets: true,
+                is_final: true,
+            }
+        } else {
+            let (dxs, dys) = (field(line, 98, 106), field(line, 117, 125));
+            let has_pole_offsets = !dxs.is_empty() && !dys.is_empty();
+            EopRow {
+                mjd,
+                x_p_arcsec: num(path, lineno, xs, "x_p")?,
+                y_p_arcsec: num(path, lineno, ys, "y_p")?,
+                ut1_minus_utc_s: num(path, lineno, us, "UT1-UTC")?,
+                dx_mas: if has_pole_offsets { num(path, lineno, dxs, "dX")? } else { 0.0 },
+                dy_mas: if has_pole_offsets { num(path, lineno, dys, "dY")? } else { 0.0 },
+                predicted: flag_pm == "P" || flag_ut == "P",
+                has_pole_offsets,
+                is_final: false,
+            }
         };
         if row.ut1_minus_utc_s.abs() > 1.0 || row.x_p_arcsec.abs() > 2.0 || row.y_p_arcsec.abs() > 2.0 {
             return Err(EopError::Format { path: path.into(), line: lineno, reason: "value out of the physical range (|UT1−UTC| ≤ 1 s, |x_p|, |y_p| ≤ 2″)".into() });
@@ -297,6 +319,7 @@ fn parse_c04(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
             dy_mas: num(path, lineno, f[9], "dY")? * 1e3,
             predicted: false,
             has_pole_offsets: true,
+            is_final: true,
         };
         if row.ut1_minus_utc_s.abs() > 1.0 || row.x_p_arcsec.abs() > 2.0 || row.y_p_arcsec.abs() > 2.0 {
             return Err(EopError::Format { path: path.into(), line: lineno, reason: "value out of the physical range (|UT1−UTC| ≤ 1 s, |x_p|, |y_p| ≤ 2″)".into() });

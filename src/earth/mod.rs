@@ -69,6 +69,10 @@ pub struct EarthModel {
     pub time: TimeScales,
     pub eop: EopTable,
     pub cip: CipSource,
+    /// Apply the observed celestial pole offsets dX, dY (IERS Conventions
+    /// 2010, eq. 5.25). On by default; off only to compare with software
+    /// that omits them (they reach ≈ 1 mas, 3 cm at the surface).
+    pub pole_offsets: bool,
 }
 
 /// Two-part Julian Date (2400000.5 + MJD day, fraction) of a uniform epoch.
@@ -79,7 +83,7 @@ fn jd_parts(e: &Epoch) -> (f64, f64) {
 impl EarthModel {
     /// With direct (series) evaluation of the celestial pole.
     pub fn new(time: TimeScales, eop: EopTable) -> Self {
-        Self { time, eop, cip: CipSource::Direct }
+        Self { time, eop, cip: CipSource::Direct, pole_offsets: true }
     }
 
     /// Switch to a grid of X, Y, s covering a UTC span (MJD), for batches.
@@ -105,7 +109,11 @@ impl EarthModel {
     /// # Accuracy
     /// See [`itrs_to_gcrs`] and [`EopTable::at_utc`].
     pub fn rotation_at(&self, utc: &Epoch) -> Result<(TerrestrialToCelestial, EopValues, Epoch), EarthError> {
-        let eop = self.eop.at_utc(self.time.leap_seconds(), utc)?;
+        let mut eop = self.eop.at_utc(self.time.leap_seconds(), utc)?;
+        if !self.pole_offsets {
+            eop.dx_rad = 0.0;
+            eop.dy_rad = 0.0;
+        }
         let tt = self.time.convert(*utc, TimeScale::Tt, 0.0).map_err(|source| EarthError::Time { context: "UTC → TT".into(), source })?;
         let tai_fs = self.time.tt_fs(utc, 0.0).map_err(|source| EarthError::Time { context: "UTC → TAI".into(), source })? - crate::time::TT_MINUS_TAI_FS;
         let ut1_fs = tai_fs + seconds_to_fs(eop.ut1_minus_tai_s).unwrap_or(0);

@@ -7,7 +7,8 @@ the predicted part of the table; seeded) and the invented stations of
 data/demo/stations.toml (cycled), it gives:
 
 - the EOP values at the epoch, interpolated here independently of lapse:
-  data/finals2000A.all, Bulletin A columns (x_p, y_p, UT1-UTC, dX, dY),
+  data/finals2000A.all, Bulletin B columns (final values) where present,
+  otherwise Bulletin A (x_p, y_p, UT1-UTC, dX, dY; dX = dY = 0 if blank),
   4-point Lagrange interpolation on the daily nodes, UT1-UTC interpolated as
   UT1-TAI (TAI-UTC from erfa.dat) with the window [i-1, i+2] kept inside
   the table;
@@ -51,8 +52,14 @@ for line in open(os.path.join(root, "data", "finals2000A.all")):
     if not (xs and ys and us):
         break
     dxs, dys = line[97:106].strip(), line[116:125].strip()
+    b = [line[134:144], line[144:154], line[154:165], line[165:175], line[175:185]]
+    b = [x.strip() for x in b]
+    mjd = int(float(line[7:15]))
+    if all(b):
+        rows.append((mjd, float(b[0]), float(b[1]), float(b[2]), float(b[3]), float(b[4]), False))
+        continue
     pred = line[16] == "P" or line[57] == "P"
-    rows.append((int(float(line[7:15])), float(xs), float(ys), float(us),
+    rows.append((mjd, float(xs), float(ys), float(us),
                  float(dxs) if dxs and dys else 0.0, float(dys) if dxs and dys else 0.0, pred))
 mjd0 = rows[0][0]
 table = np.array([r[:6] for r in rows])
