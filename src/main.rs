@@ -60,9 +60,22 @@ enum Command {
         #[arg(long)]
         extend_leaps: bool,
         /// Topocentric part of TDB − TT for the observer, seconds (v_E·x/c²);
-        /// 0 is the geocentre.
+        /// 0 is the geocentre. Computed instead when --site is given.
         #[arg(long, default_value_t = 0.0, allow_hyphen_values = true)]
         observer_term_s: f64,
+        /// Station code: compute the topocentric TDB − TT term for it
+        /// (needs --stations, --kernel and --eop).
+        #[arg(long, requires_all = ["stations", "kernel", "eop"])]
+        site: Option<String>,
+        /// Station catalogue (TOML).
+        #[arg(long)]
+        stations: Option<PathBuf>,
+        /// Planetary SPK kernel for the Earth's velocity.
+        #[arg(long)]
+        kernel: Option<PathBuf>,
+        /// IERS EOP file (finals2000A or C04); also enables UT1.
+        #[arg(long)]
+        eop: Option<PathBuf>,
     },
 }
 
@@ -97,8 +110,12 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             print!("{}", eph.listing());
             Ok(ExitCode::SUCCESS)
         }
-        Command::Time { epochs, from, to, file, leap_file, extend_leaps, observer_term_s } => {
-            time(epochs, &from, &to, file, leap_file, extend_leaps, observer_term_s)
+        Command::Time { epochs, from, to, file, leap_file, extend_leaps, observer_term_s, site, stations, kernel, eop } => {
+            let site = match (site, stations, kernel) {
+                (Some(code), Some(st), Some(k)) => Some(SiteArgs { code, stations: st, kernel: k }),
+                _ => None,
+            };
+            time(TimeArgs { epochs, from, to, file, leap_file, extend_leaps, observer_term_s, site, eop })
         }
     }
 }
@@ -121,21 +138,37 @@ fn run(pipeline: PathBuf, output: Option<PathBuf>, quiet: bool) -> Result<ExitCo
     Ok(ExitCode::SUCCESS)
 }
 
-fn time(
-    mut epochs: Vec<String>,
-    from: &str,
-    to: &[String],
+struct SiteArgs {
+    code: String,
+    stations: PathBuf,
+    kernel: PathBuf,
+}
+
+struct TimeArgs {
+    epochs: Vec<String>,
+    from: String,
+    to: Vec<String>,
     file: Option<PathBuf>,
     leap_file: Option<PathBuf>,
     extend_leaps: bool,
     observer_term_s: f64,
-) -> Result<ExitCode> {
+    site: Option<SiteArgs>,
+    eop: Option<PathBuf>,
+}
+
+fn time(args: TimeArgs) -> Result<ExitCode> {
+    let TimeArgs { mut epochs, from, to, file, leap_file, extend_leaps, observer_term_s, site, eop } = args;
+    let to = &to;
     let from: TimeScale = from.parse().context("--from")?;
     let targets: Vec<TimeScale> = if to.is_empty() {
-        TimeScale::ALL.into_iter().filter(|s| *s != TimeScale::Ut1).collect()
+        // UT1 by default only when Earth-orientation data are given.
+        TimeScale::ALL.into_iter().filter(|s| *s != TimeScale::Ut1 || eop.is_some()).collect()
     } else {
         to.iter().map(|s| s.parse::<TimeScale>()).collect::<Result<_, _>>().context("--to")?
     };
+    if (targets.contains(&TimeScale::Ut1) || from == TimeScale::Ut1) && eop.is_none() {
+        bail!("UT1 needs Earth-orientation data: give --eop FILE (IERS finals2000A or C04)");
+    }
     let mut leaps = match &leap_file {
         Some(p) => LeapSecondTable::from_file(p)?,
         None => LeapSecondTable::builtin(),
@@ -143,7 +176,21 @@ fn time(
     if extend_leaps {
         leaps = leaps.with_policy(ExpiryPolicy::ExtendLastOffset);
     }
-    let ts = TimeScales::new(leaps);
+    let mut ts = TimeScales::new(leaps);
+    let mut earth = None;
+    let mut eop_table = None;
+    if let Some(path) = &eop {
+        let table = std::sync::Arc::new(lapse::earth::EopTable::from_file(path)?);
+        ts = ts.with_ut1(table.clone());
+        eop_table = Some(table.clone());
+        if let Some(s) = &site {
+            let cat = lapse::earth::StationCatalog::from_file(&s.stations)?;
+            let station = cat.get(&s.code)?.clone();
+            let eph = lapse::ephemeris::Ephemeris::load(&[&s.kernel])?;
+            let model = lapse::earth::EarthModel::new(ts.clone(), (*table).clone());
+            earth = Some((model, eph, station));
+        }
+    }
     let mut sources: Vec<String> = epochs.iter().enumerate().map(|(i, _)| format!("argument {}", i + 1)).collect();
     if let Some(path) = &file {
         let f = std::fs::File::open(path).with_context(|| format!("cannot open {}", path.display()))?;
@@ -163,8 +210,20 @@ fn time(
     for (text, source) in epochs.iter().zip(&sources) {
         let e = parse_epoch(&ts, from, text).with_context(|| source.clone())?;
         writeln!(out, "# {text} ({from})")?;
+        let mut observer_s = observer_term_s;
+        if let Some((model, eph, station)) = &earth {
+            let (term_s, eop_values) = model.observer_term_at(eph, station, &e).with_context(|| format!("{source}: {text} at site {}", station.code))?;
+            observer_s = term_s;
+            writeln!(out, "# site {}: topocentric TDB − TT = {term_s:+.15e} s (v_E·x/c²){}", station.code, if eop_values.predicted { "; EOP values are PREDICTIONS" } else { "" })?;
+        }
+        if let (Some(table), true) = (&eop_table, targets.contains(&TimeScale::Ut1)) {
+            let utc = ts.convert(e, TimeScale::Utc, observer_s).with_context(|| format!("{source}: {text}"))?;
+            if table.at_utc(ts.leap_seconds(), &utc).with_context(|| format!("{source}: {text}"))?.predicted {
+                writeln!(out, "# UT1 uses PREDICTED Earth-orientation values from {}", table.path().display())?;
+            }
+        }
         for t in &targets {
-            let c = ts.convert(e, *t, observer_term_s).with_context(|| format!("{source}: {text}"))?;
+            let c = ts.convert(e, *t, observer_s).with_context(|| format!("{source}: {text}"))?;
             let mjd = ts.mjd_fraction_digits(&c, 18)?;
             let iso = c.to_string();
             let iso = iso.rsplit_once(' ').map(|(a, _)| a).unwrap_or(&iso);

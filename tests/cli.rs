@@ -142,3 +142,68 @@ fn pipeline_errors_are_clean() {
     assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "column 'mjd_day' has type");
     assert_clean_error(&lapse(&["run", "/no/such/pipeline.toml"]), "/no/such/pipeline.toml");
 }
+
+fn data(p: &str) -> String {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(p).to_string_lossy().into_owned()
+}
+
+#[test]
+fn kernels_lists_de421_and_refuses_corrupt_files() {
+    let o = lapse(&["kernels", &data("data/de421.bsp")]);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(0), "{err}");
+    assert!(out.contains("EARTH (399)") && out.contains("EARTH BARYCENTER (3)") && out.contains("2053-10-09"), "{out}");
+    let d = tmpdir("kernels");
+    let bytes = std::fs::read(data("data/de421.bsp")).unwrap();
+    let cut = d.join("cut.bsp");
+    std::fs::write(&cut, &bytes[..5000]).unwrap();
+    assert_clean_error(&lapse(&["kernels", cut.to_str().unwrap()]), "cut.bsp");
+    let junk = d.join("junk.bsp");
+    std::fs::write(&junk, b"DAF/SPK junk junk junk").unwrap();
+    assert_clean_error(&lapse(&["kernels", junk.to_str().unwrap()]), "junk.bsp");
+    assert_clean_error(&lapse(&["kernels", "/no/such.bsp"]), "/no/such.bsp");
+}
+
+#[test]
+fn site_term_and_ut1_through_the_binary() {
+    let site = ["--site", "HARRIER-2", "--stations", &data("data/demo/stations.toml"), "--kernel", &data("data/de421.bsp"), "--eop", &data("data/finals2000A.all")];
+    let mut args = vec!["time", "2024-03-20T03:06:00", "--to", "tdb,ut1"];
+    args.extend(site.iter().copied());
+    let o = lapse(&args);
+    let (out, err) = text(&o);
+    assert_eq!(o.status.code(), Some(0), "{err}");
+    assert!(out.contains("# site HARRIER-2: topocentric TDB − TT = +4.7061"), "{out}");
+    // UT1 − UTC = −9.19 ms on 2024-03-20 (IERS Bulletin B values in finals2000A.all).
+    assert!(out.contains("ut1  2024-03-20T03:05:59.9908"), "{out}");
+    let o = lapse(&["time", "2026-12-20", "--to", "ut1", "--eop", &data("data/finals2000A.all")]);
+    assert!(text(&o).0.contains("PREDICTED"), "{}", text(&o).0);
+    assert_clean_error(&lapse(&["time", "2024-03-20", "--to", "ut1"]), "UT1 needs Earth-orientation data");
+}
+
+#[test]
+fn geometry_bad_inputs_are_clean_errors() {
+    let d = tmpdir("geometry-bad");
+    let stations = data("data/demo/stations.toml");
+    let base = ["time", "2024-03-20", "--to", "tdb", "--kernel", &data("data/de421.bsp"), "--eop", &data("data/finals2000A.all")];
+    // Unknown station code.
+    let mut a = base.to_vec();
+    a.extend(["--site", "NOPE", "--stations", &stations]);
+    assert_clean_error(&lapse(&a), "unknown station 'NOPE'");
+    // A station with a non-finite coordinate, and one in orbit.
+    let bad = d.join("bad.toml");
+    std::fs::write(&bad, "[[station]]\ncode = \"X\"\nitrf_m = [nan, 0.0, 0.0]\n").unwrap();
+    let mut a = base.to_vec();
+    a.extend(["--site", "X", "--stations", bad.to_str().unwrap()]);
+    assert_clean_error(&lapse(&a), "not finite");
+    std::fs::write(&bad, "[[station]]\ncode = \"X\"\nitrf_m = [7000000.0, 0.0, 0.0]\n").unwrap();
+    assert_clean_error(&lapse(&a), "km from the GRS80");
+    // An EOP file with a malformed line.
+    let text_eop = std::fs::read_to_string(data("data/finals2000A.all")).unwrap();
+    let mut lines: Vec<String> = text_eop.lines().map(str::to_string).collect();
+    lines[9] = lines[9].replacen("0.", "0x", 1);
+    let eop = d.join("finals.bad");
+    std::fs::write(&eop, lines.join("\n")).unwrap();
+    assert_clean_error(&lapse(&["time", "2024-03-20", "--to", "ut1", "--eop", eop.to_str().unwrap()]), "line 10");
+    // Outside the EOP table.
+    assert_clean_error(&lapse(&["time", "2030-01-01", "--to", "ut1", "--extend-leaps", "--eop", &data("data/finals2000A.all")]), "outside the table");
+}

@@ -187,6 +187,12 @@ impl EopTable {
     }
 }
 
+impl crate::time::Ut1Source for EopTable {
+    fn ut1_minus_tai_s(&self, leaps: &LeapSecondTable, utc: &Epoch) -> Result<f64, String> {
+        self.at_utc(leaps, utc).map(|v| v.ut1_minus_tai_s).map_err(|e| e.to_string())
+    }
+}
+
 /// 4-point Lagrange interpolation at `t` through (x_k, y_k).
 pub fn lagrange4(x: &[f64; 4], y: &[f64; 4], t: f64) -> f64 {
     let mut sum = 0.0;
@@ -259,6 +265,20 @@ fn parse_finals(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
         }
         let flag_pm = field(line, 17, 17);
         let flag_ut = field(line, 58, 58);
+        // Bulletin A values are read (and so validated) on every row.
+        let (dxs, dys) = (field(line, 98, 106), field(line, 117, 125));
+        let has_pole_offsets = !dxs.is_empty() && !dys.is_empty();
+        let a = EopRow {
+            mjd,
+            x_p_arcsec: num(path, lineno, xs, "x_p")?,
+            y_p_arcsec: num(path, lineno, ys, "y_p")?,
+            ut1_minus_utc_s: num(path, lineno, us, "UT1-UTC")?,
+            dx_mas: if has_pole_offsets { num(path, lineno, dxs, "dX")? } else { 0.0 },
+            dy_mas: if has_pole_offsets { num(path, lineno, dys, "dY")? } else { 0.0 },
+            predicted: flag_pm == "P" || flag_ut == "P",
+            has_pole_offsets,
+            is_final: false,
+        };
         let (xb, yb, ub, dxb, dyb) = (field(line, 135, 144), field(line, 145, 154), field(line, 155, 165), field(line, 166, 175), field(line, 176, 185));
         let row = if !(xb.is_empty() || yb.is_empty() || ub.is_empty() || dxb.is_empty() || dyb.is_empty()) {
             EopRow {
@@ -273,19 +293,7 @@ fn parse_finals(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
                 is_final: true,
             }
         } else {
-            let (dxs, dys) = (field(line, 98, 106), field(line, 117, 125));
-            let has_pole_offsets = !dxs.is_empty() && !dys.is_empty();
-            EopRow {
-                mjd,
-                x_p_arcsec: num(path, lineno, xs, "x_p")?,
-                y_p_arcsec: num(path, lineno, ys, "y_p")?,
-                ut1_minus_utc_s: num(path, lineno, us, "UT1-UTC")?,
-                dx_mas: if has_pole_offsets { num(path, lineno, dxs, "dX")? } else { 0.0 },
-                dy_mas: if has_pole_offsets { num(path, lineno, dys, "dY")? } else { 0.0 },
-                predicted: flag_pm == "P" || flag_ut == "P",
-                has_pole_offsets,
-                is_final: false,
-            }
+            a
         };
         if row.ut1_minus_utc_s.abs() > 1.0 || row.x_p_arcsec.abs() > 2.0 || row.y_p_arcsec.abs() > 2.0 {
             return Err(EopError::Format { path: path.into(), line: lineno, reason: "value out of the physical range (|UT1−UTC| ≤ 1 s, |x_p|, |y_p| ≤ 2″)".into() });

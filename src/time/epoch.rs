@@ -178,24 +178,51 @@ impl fmt::Display for Epoch {
     }
 }
 
+/// A source of UT1 − TAI (Earth-orientation data), so that UT1 can join
+/// the conversion chain without the time module depending on `earth`.
+pub trait Ut1Source: Send + Sync + std::fmt::Debug {
+    /// UT1 − TAI in seconds at a UTC epoch.
+    fn ut1_minus_tai_s(&self, leaps: &LeapSecondTable, utc: &Epoch) -> Result<f64, String>;
+}
+
 /// Converts epochs between time scales with one leap-second table.
 ///
-/// The conversions form the chain UTC ↔ TAI ↔ TT ↔ {GPS, TCG, TDB ↔ TCB};
-/// each step is one of the documented routines of this module.
+/// The conversions form the chain UTC ↔ TAI ↔ TT ↔ {GPS, TCG, TDB ↔ TCB},
+/// and TAI ↔ UT1 when a [`Ut1Source`] is attached; each step is one of the
+/// documented routines of this module.
 #[derive(Clone, Debug)]
 pub struct TimeScales {
     leaps: LeapSecondTable,
+    ut1: Option<std::sync::Arc<dyn Ut1Source>>,
 }
 
 impl TimeScales {
     /// With the leap-second table built into lapse.
     pub fn builtin() -> Self {
-        Self { leaps: LeapSecondTable::builtin() }
+        Self { leaps: LeapSecondTable::builtin(), ut1: None }
     }
 
     /// With a given leap-second table.
     pub fn new(leaps: LeapSecondTable) -> Self {
-        Self { leaps }
+        Self { leaps, ut1: None }
+    }
+
+    /// The same converter with a UT1 source (enables UT1 conversions).
+    pub fn with_ut1(mut self, source: std::sync::Arc<dyn Ut1Source>) -> Self {
+        self.ut1 = Some(source);
+        self
+    }
+
+    fn ut1_minus_tai_fs_at_tai(&self, tai_fs: i128) -> Result<i128, TimeError> {
+        let src = self.ut1.as_ref().ok_or_else(|| TimeError::Unsupported {
+            from: "TAI".into(),
+            to: "UT1".into(),
+            needs: "Earth-orientation data (UT1 − UTC): give an EOP file".into(),
+        })?;
+        let (day, fs) = self.leaps.utc_day_of_tai(tai_fs)?;
+        let utc = Epoch { scale: TimeScale::Utc, mjd_day: day, fs_of_day: fs };
+        let d = src.ut1_minus_tai_s(&self.leaps, &utc).map_err(|reason| TimeError::Ut1 { reason })?;
+        seconds_to_fs(d).ok_or_else(|| TimeError::NonFinite { what: "UT1 − TAI (s)".into(), value: d })
     }
 
     /// The leap-second table in use.
@@ -284,11 +311,17 @@ impl TimeScales {
                 self.tt_fs_of_tdb_fs(tdb, observer_s)?
             }
             TimeScale::Ut1 => {
-                return Err(TimeError::Unsupported {
-                    from: "UT1".into(),
-                    to: "TT".into(),
-                    needs: "Earth-orientation data (UT1 − UTC)".into(),
-                });
+                // TAI = UT1 − (UT1 − TAI)(TAI): fixed point; UT1 − TAI changes
+                // by < 1e-7 s per second, so three iterations reach 1 fs.
+                let mut tai = label;
+                for _ in 0..4 {
+                    let next = label - self.ut1_minus_tai_fs_at_tai(tai)?;
+                    if next == tai {
+                        break;
+                    }
+                    tai = next;
+                }
+                tai + TT_MINUS_TAI_FS
             }
         })
     }
@@ -364,11 +397,10 @@ impl TimeScales {
                 let (day, fs) = self.leaps.utc_day_of_tai(tt - TT_MINUS_TAI_FS)?;
                 Ok(Epoch { scale: TimeScale::Utc, mjd_day: day, fs_of_day: fs })
             }
-            TimeScale::Ut1 => Err(TimeError::Unsupported {
-                from: e.scale.to_string(),
-                to: "UT1".into(),
-                needs: "Earth-orientation data (UT1 − UTC)".into(),
-            }),
+            TimeScale::Ut1 => {
+                let tai = tt - TT_MINUS_TAI_FS;
+                Epoch::from_uniform_fs(to, tai + self.ut1_minus_tai_fs_at_tai(tai)?)
+            }
         }
     }
 }

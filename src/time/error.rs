@@ -59,6 +59,10 @@ pub enum TimeError {
     #[error("conversion {from} → {to} needs {needs}")]
     Unsupported { from: String, to: String, needs: String },
 
+    /// UT1 could not be had from the Earth-orientation data.
+    #[error("UT1: {reason}")]
+    Ut1 { reason: String },
+
     /// An epoch outside the representable range.
     #[error("epoch out of range: {what}")]
     OutOfRange { what: String },
