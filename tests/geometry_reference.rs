@@ -225,3 +225,17 @@ fn eop_readers_reproduce_tabulated_values_and_series_agree() {
     assert!(max_ut1 <= SERIES_UT1_TOL_S && max_pm <= SERIES_POLE_TOL_MAS, "{max_ut1} s, {max_pm} mas");
     eprintln!("C04 vs finals2000A (B) 2000–2025: max |ΔUT1| {max_ut1:.3e} s, max |Δpole| {max_pm:.3} mas");
 }
+
+#[test]
+fn station_tdb_equals_time_conversion_with_observer_term() {
+    // The station state's TDB must be exactly TimeScales::convert(TT → TDB,
+    // observer term): one formula, one rounding.
+    let model = earth_model();
+    let eph = Ephemeris::load(&[root().join("data/de421.bsp")]).unwrap();
+    let cat = StationCatalog::from_file(&root().join("data/demo/stations.toml")).unwrap();
+    for (k, st) in cat.stations().iter().enumerate() {
+        let utc = model.time.epoch_from_mjd(TimeScale::Utc, 59_000 + 17 * k as i64, 0.123 + 0.1 * k as f64).unwrap();
+        let s = model.station_state(&eph, st, &utc).unwrap();
+        assert_eq!(s.tdb, model.time.convert(s.tt, TimeScale::Tdb, s.observer_term_s).unwrap(), "{}", st.code);
+    }
+}

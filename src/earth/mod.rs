@@ -148,11 +148,23 @@ impl EarthModel {
     /// v_E · x / c²) and ch. 11 (BCRS position of a terrestrial station).
     pub fn station_state(&self, eph: &Ephemeris, station: &Station, utc: &Epoch) -> Result<StationState, EarthError> {
         let (x_gcrs, v_gcrs, eop, tt) = self.station_gcrs(station, utc)?;
-        let geo_tdb = self.time.convert(tt, TimeScale::Tdb, 0.0).map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })?;
+        // TDB − TT = Δ_geo(TT) + observer term (IERS Conventions 2010 eq. 10.9):
+        // the 787-term series depends on TT only, so it is evaluated once for
+        // both the geocentric and the topocentric TDB (same formula and
+        // rounding as TimeScales::convert).
+        let dtdb_geo_s = crate::time::relativistic::tdb_minus_tt_geocentric_s(tt.label_fs());
+        let tdb_at = |obs_s: f64| -> Result<Epoch, EarthError> {
+            let d = seconds_to_fs(dtdb_geo_s + obs_s).ok_or_else(|| EarthError::Time {
+                context: "TT → TDB".into(),
+                source: TimeError::NonFinite { what: "TDB − TT (s)".into(), value: dtdb_geo_s + obs_s },
+            })?;
+            Epoch::from_uniform_fs(TimeScale::Tdb, tt.label_fs() + d).map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })
+        };
+        let geo_tdb = tdb_at(0.0)?;
         let earth_geo = eph.state_ssb(399, &TdbSeconds::from_epoch(&geo_tdb)?)?;
         let v_e = Vector3::from(earth_geo.velocity_km_s) * 1e3;
         let observer_term_s = v_e.dot(&x_gcrs) / (C_M_S * C_M_S);
-        let tdb = self.time.convert(tt, TimeScale::Tdb, observer_term_s).map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })?;
+        let tdb = tdb_at(observer_term_s)?;
         let earth = if tdb == geo_tdb { earth_geo } else { eph.state_ssb(399, &TdbSeconds::from_epoch(&tdb)?)? };
         let bcrs_position_m = Vector3::from(earth.position_km) * 1e3 + x_gcrs;
         let bcrs_velocity_m_s = Vector3::from(earth.velocity_km_s) * 1e3 + v_gcrs;
