@@ -8,10 +8,12 @@
 //! rules and licensed practice take precedence.
 
 pub mod constants;
+pub mod delays;
 pub mod earth;
 pub mod ephemeris;
 pub mod io;
 pub mod pipeline;
+pub mod pulsar;
 pub mod time;
 
 /// Version of lapse (from Cargo.toml).

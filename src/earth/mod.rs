@@ -88,9 +88,14 @@ impl EarthModel {
 
     /// Switch to a grid of X, Y, s covering a UTC span (MJD), for batches.
     pub fn with_cip_grid(mut self, first_mjd_utc: f64, last_mjd_utc: f64) -> Self {
+        self.set_cip_grid(first_mjd_utc, last_mjd_utc);
+        self
+    }
+
+    /// Use a grid of X, Y, s covering a UTC span (MJD).
+    pub fn set_cip_grid(&mut self, first_mjd_utc: f64, last_mjd_utc: f64) {
         // TT − UTC < 80 s: pad by a day either side.
         self.cip = CipSource::Grid(CipGrid::new(first_mjd_utc - 1.0, last_mjd_utc + 1.0, CIP_GRID_STEP_DAY));
-        self
     }
 
     fn cip_at(&self, tt: &Epoch) -> CipXys {

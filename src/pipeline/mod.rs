@@ -4,16 +4,19 @@
 //! Paths in a pipeline are relative to the pipeline file's folder. Unknown
 //! keys are an error that names them.
 
+pub mod pulsar;
 mod timescales;
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
 
+use polars::prelude::*;
 use sha2::{Digest, Sha256};
 
 use crate::io::IoError;
 use crate::time::TimeError;
 
+pub use pulsar::{LoadedPulsar, load_pulsar, run_pulsar};
 pub use timescales::{TimescalesPipeline, run_timescales};
 
 /// Errors of a pipeline run.
@@ -34,7 +37,7 @@ pub enum PipelineError {
 }
 
 /// The kinds of pipeline lapse runs.
-pub const KINDS: &[&str] = &["timescales"];
+pub const KINDS: &[&str] = &["timescales", "pulsar"];
 
 /// A pipeline file, read and hashed, not yet interpreted.
 #[derive(Clone, Debug)]
@@ -107,6 +110,7 @@ pub fn run(path: &Path, output: Option<&Path>) -> Result<RunSummary, PipelineErr
     let file = PipelineFile::read(path)?;
     match file.kind.as_str() {
         "timescales" => run_timescales(&file, output),
+        "pulsar" => run_pulsar(&file, output),
         other => Err(PipelineError::UnknownKind { path: path.into(), kind: other.into(), known: KINDS.join(", ") }),
     }
 }
@@ -115,4 +119,115 @@ pub fn run(path: &Path, output: Option<&Path>) -> Result<RunSummary, PipelineErr
 pub fn rejects_path(output: &Path) -> PathBuf {
     let stem = output.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "output".into());
     output.with_file_name(format!("{stem}.rejects.parquet"))
+}
+
+impl RunSummary {
+    /// A summary with counts and reject reasons classified.
+    pub fn new(rows_in: usize, rows_out: usize, rows_rejected: usize, output: &Path, reasons: &[String]) -> Self {
+        let mut s = RunSummary { rows_in, rows_out, rows_rejected, output: output.into(), rejects: rejects_path(output), ..Default::default() };
+        for r in reasons {
+            *s.rejects_by_reason.entry(reason_class(r)).or_default() += 1;
+        }
+        s
+    }
+}
+
+/// The class of a reject reason (its text up to the first ':').
+pub fn reason_class(reason: &str) -> String {
+    reason.split(':').next().unwrap_or(reason).trim().to_string()
+}
+
+/// Fails on a null or duplicate `obs_id`, naming the rows.
+pub fn check_unique_ids(ids: &[Option<String>], path: &Path) -> Result<(), PipelineError> {
+    let mut seen: HashMap<&str, usize> = HashMap::with_capacity(ids.len());
+    for (row, id) in ids.iter().enumerate() {
+        let Some(id) = id.as_deref() else {
+            return Err(IoError::Value { path: path.into(), column: "obs_id".into(), row, message: "null obs_id".into() }.into());
+        };
+        if let Some(first) = seen.insert(id, row) {
+            return Err(PipelineError::DuplicateId { path: path.into(), obs_id: id.into(), first, second: row });
+        }
+    }
+    Ok(())
+}
+
+/// Splits an input table into the output table (obs_id, computed columns,
+/// then the input's other columns except `drop`) and the rejects table (the
+/// input columns plus `reason`). `ok[i]` says whether row i was computed;
+/// `computed` holds the accepted rows only and `reasons` the rejected ones, in
+/// input order.
+pub fn assemble(df: &DataFrame, path: &Path, ok: &[bool], reasons: &[String], computed: Vec<Column>, drop: &[&str]) -> Result<(DataFrame, DataFrame), PipelineError> {
+    let perr = |e: PolarsError| PipelineError::Invalid { path: path.into(), message: e.to_string() };
+    let ok_mask: BooleanChunked = ok.iter().copied().collect();
+    let bad_mask: BooleanChunked = ok.iter().map(|b| !b).collect();
+    let kept = df.filter(&ok_mask).map_err(perr)?;
+    let mut rejects = df.filter(&bad_mask).map_err(perr)?;
+    let mut all = vec![kept.column("obs_id").map_err(perr)?.clone()];
+    all.extend(computed);
+    all.extend(kept.columns().iter().filter(|c| c.name().as_str() != "obs_id" && !drop.contains(&c.name().as_str())).cloned());
+    let out = DataFrame::new_infer_height(all).map_err(perr)?;
+    rejects.with_column(Column::new("reason".into(), reasons.to_vec())).map_err(perr)?;
+    Ok((out, rejects))
+}
+
+/// Key-value provenance written into every output file (keys `lapse.*`).
+#[derive(Clone, Debug)]
+pub struct Provenance {
+    entries: Vec<(String, String)>,
+    roles: BTreeMap<String, usize>,
+}
+
+/// Source revision (git commit) lapse was built from.
+pub const SOURCE_REVISION: &str = env!("LAPSE_SOURCE_REVISION");
+
+/// The current wall-clock time as ISO 8601 UTC (seconds).
+pub fn now_utc_iso() -> String {
+    let secs = std::time::SystemTime::now().duration_since(std::time::UNIX_EPOCH).map(|d| d.as_secs() as i64).unwrap_or(0);
+    let (days, sod) = (secs.div_euclid(86_400), secs.rem_euclid(86_400));
+    let (y, m, d) = crate::time::calendar::ymd_from_mjd(40_587 + days);
+    format!("{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z", sod / 3600, (sod / 60) % 60, sod % 60)
+}
+
+impl Provenance {
+    /// Starts the record of a run of `file`.
+    pub fn start(file: &PipelineFile) -> Self {
+        let mut p = Self { entries: Vec::new(), roles: BTreeMap::new() };
+        p.set("version", crate::VERSION);
+        p.set("source_revision", SOURCE_REVISION);
+        p.set("run.started_utc", &now_utc_iso());
+        p.set("pipeline.path", &file.path.display().to_string());
+        p.set("pipeline.kind", &file.kind);
+        p.set("pipeline.sha256", &file.sha256);
+        p.set("pipeline.text", &file.text);
+        p
+    }
+
+    /// Sets `lapse.<key>`.
+    pub fn set(&mut self, key: &str, value: &str) {
+        self.entries.push((format!("lapse.{key}"), value.to_string()));
+    }
+
+    /// Records an input file: path, size and SHA-256, numbered per role.
+    pub fn add_input(&mut self, role: &str, path: &Path) -> Result<(), IoError> {
+        let n = self.roles.entry(role.to_string()).or_default();
+        let key = format!("input.{role}.{n}");
+        *n += 1;
+        let bytes = std::fs::read(path).map_err(|source| IoError::Open { path: path.into(), source })?;
+        self.set(&format!("{key}.path"), &path.display().to_string());
+        self.set(&format!("{key}.bytes"), &bytes.len().to_string());
+        self.set(&format!("{key}.sha256"), &sha256_hex(&bytes));
+        Ok(())
+    }
+
+    /// Records the row counts.
+    pub fn set_rows(&mut self, rows_in: usize, rows_out: usize, rows_rejected: usize) {
+        self.set("rows.in", &rows_in.to_string());
+        self.set("rows.out", &rows_out.to_string());
+        self.set("rows.rejected", &rows_rejected.to_string());
+    }
+
+    /// The key-value pairs, in the order they were set.
+    pub fn finish(self) -> Vec<(String, String)> {
+        self.entries
+    }
 }

@@ -8,15 +8,14 @@
 //! pass-through columns. Rows that cannot be converted go to the rejects
 //! table beside the output with a `reason`.
 
-use std::collections::HashMap;
 use std::path::PathBuf;
 
 use polars::prelude::*;
 use rayon::prelude::*;
 use serde::Deserialize;
 
-use super::{PipelineError, PipelineFile, RunSummary, rejects_path, sha256_file};
-use crate::io::{Columns, IoError, read_parquet, write_parquet};
+use super::{PipelineError, PipelineFile, RunSummary, assemble, check_unique_ids};
+use crate::io::{Columns, read_parquet, write_parquet};
 use crate::time::femto::{FS_PER_S, ratio_to_f64};
 use crate::time::{ExpiryPolicy, LeapSecondTable, TimeScale, TimeScales};
 
@@ -90,6 +89,7 @@ pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> 
     }
     let ts = TimeScales::new(leaps);
 
+    let mut prov = super::Provenance::start(file);
     let input_path = file.resolve(&cfg.input.path);
     let output_path = output.map(std::path::Path::to_path_buf).unwrap_or_else(|| file.resolve(&cfg.output.path));
     let df = read_parquet(&input_path)?;
@@ -97,30 +97,16 @@ pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> 
     let ids = cols.str("obs_id")?;
     let days = cols.i64("mjd_day")?;
     let fracs = cols.f64("mjd_frac")?;
-    let mut seen: HashMap<&str, usize> = HashMap::with_capacity(ids.len());
-    for (row, id) in ids.iter().enumerate() {
-        let Some(id) = id.as_deref() else {
-            return Err(IoError::Value { path: input_path.clone(), column: "obs_id".into(), row, message: "null obs_id".into() }.into());
-        };
-        if let Some(first) = seen.insert(id, row) {
-            return Err(PipelineError::DuplicateId { path: input_path.clone(), obs_id: id.into(), first, second: row });
-        }
-    }
+    check_unique_ids(&ids, &input_path)?;
 
     let n = df.height();
     let rows: Vec<usize> = (0..n).collect();
     let results: Vec<RowResult> = rows
         .par_chunks(CHUNK_ROWS)
-        .flat_map_iter(|chunk| {
-            chunk.iter().map(|&i| convert_row(&ts, in_scale, &out_scales, days[i], fracs[i]))
-        })
+        .flat_map_iter(|chunk| chunk.iter().map(|&i| convert_row(&ts, in_scale, &out_scales, days[i], fracs[i])))
         .collect();
 
-    let ok_mask: BooleanChunked = results.iter().map(|r| r.is_ok()).collect();
-    let mut out = df.filter(&ok_mask).map_err(|e| PipelineError::Invalid { path: input_path.clone(), message: e.to_string() })?;
-    let rejected_mask: BooleanChunked = results.iter().map(|r| r.is_err()).collect();
-    let mut rejects = df.filter(&rejected_mask).map_err(|e| PipelineError::Invalid { path: input_path.clone(), message: e.to_string() })?;
-
+    let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<&(Vec<(i64, f64)>, f64, f64)> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
     let mut computed: Vec<Column> = Vec::new();
     for (k, s) in out_scales.iter().enumerate() {
@@ -129,46 +115,17 @@ pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> 
     }
     computed.push(Column::new("tt_minus_utc_s".into(), good.iter().map(|g| g.1).collect::<Vec<f64>>()));
     computed.push(Column::new("tdb_minus_tt_s".into(), good.iter().map(|g| g.2).collect::<Vec<f64>>()));
-    let reasons: Vec<&str> = results.iter().filter_map(|r| r.as_ref().err().map(String::as_str)).collect();
+    let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
+    let (mut out, mut rejects) = assemble(&df, &input_path, &ok, &reasons, computed, &["mjd_day", "mjd_frac"])?;
 
-    // Order: obs_id, computed columns, then pass-through columns.
-    let ids_col = out.column("obs_id").map_err(|e| PipelineError::Invalid { path: input_path.clone(), message: e.to_string() })?.clone();
-    let passthrough: Vec<Column> = out
-        .columns()
-        .iter()
-        .filter(|c| !matches!(c.name().as_str(), "obs_id" | "mjd_day" | "mjd_frac"))
-        .cloned()
-        .collect();
-    let mut all = vec![ids_col];
-    all.extend(computed);
-    all.extend(passthrough);
-    out = DataFrame::new_infer_height(all).map_err(|e| PipelineError::Invalid { path: output_path.clone(), message: e.to_string() })?;
-    rejects
-        .with_column(Column::new("reason".into(), reasons.clone()))
-        .map_err(|e| PipelineError::Invalid { path: output_path.clone(), message: e.to_string() })?;
-
-    let mut summary = RunSummary {
-        rows_in: n,
-        rows_out: out.height(),
-        rows_rejected: rejects.height(),
-        output: output_path.clone(),
-        rejects: rejects_path(&output_path),
-        ..Default::default()
-    };
-    for r in &reasons {
-        *summary.rejects_by_reason.entry(reason_class(r)).or_default() += 1;
+    let mut summary = RunSummary::new(n, out.height(), rejects.height(), &output_path, &reasons);
+    prov.add_input("observations", &input_path)?;
+    if let Some(p) = &leap_path {
+        prov.add_input("leap_seconds", p)?;
     }
-    let metadata = vec![
-        ("lapse.version".to_string(), crate::VERSION.to_string()),
-        ("lapse.pipeline.kind".to_string(), "timescales".to_string()),
-        ("lapse.pipeline.sha256".to_string(), file.sha256.clone()),
-        ("lapse.pipeline.text".to_string(), file.text.clone()),
-        ("lapse.input.observations.sha256".to_string(), sha256_file(&input_path)?),
-        ("lapse.input.leap_seconds".to_string(), ts.leap_seconds().source_name().to_string()),
-        ("lapse.rows.in".to_string(), summary.rows_in.to_string()),
-        ("lapse.rows.out".to_string(), summary.rows_out.to_string()),
-        ("lapse.rows.rejected".to_string(), summary.rows_rejected.to_string()),
-    ];
+    prov.set("input.leap_seconds.table", ts.leap_seconds().source_name());
+    prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
+    let metadata = prov.finish();
     write_parquet(&mut out, &output_path, &metadata)?;
     write_parquet(&mut rejects, &summary.rejects, &metadata)?;
     let (min_tdb_tt, max_tdb_tt) = good.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), g| (a.min(g.2), b.max(g.2)));
@@ -176,11 +133,6 @@ pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> 
         summary.notes.push(format!("TDB − TT (geocentric) over the batch: {min_tdb_tt:+.9e} s … {max_tdb_tt:+.9e} s"));
     }
     Ok(summary)
-}
-
-/// The class of a reject reason (its text up to the first ':').
-fn reason_class(reason: &str) -> String {
-    reason.split(':').next().unwrap_or(reason).trim().to_string()
 }
 
 fn convert_row(ts: &TimeScales, in_scale: TimeScale, out: &[TimeScale], day: Option<i64>, frac: Option<f64>) -> RowResult {
