@@ -9,6 +9,7 @@
 
 pub mod constants;
 pub mod delays;
+pub mod diff;
 pub mod earth;
 pub mod ephemeris;
 pub mod io;

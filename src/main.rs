@@ -32,6 +32,12 @@ enum Command {
         /// Write the output here instead of the pipeline's [output] path.
         #[arg(long)]
         output: Option<PathBuf>,
+        /// Worker threads (default: RAYON_NUM_THREADS or all cores).
+        #[arg(long)]
+        threads: Option<usize>,
+        /// Rows per parallel work unit; results do not depend on it.
+        #[arg(long, default_value_t = lapse::pipeline::DEFAULT_CHUNK_ROWS)]
+        chunk_rows: usize,
     },
     /// Write arrival times that are exact under a pulsar pipeline's model
     /// (solved to ≤ 1 ps), optionally with white noise.
@@ -53,6 +59,34 @@ enum Command {
         /// Seed of the noise generator.
         #[arg(long, default_value_t = 1)]
         seed: u64,
+    },
+    /// Compare two residual tables: per-column differences with tolerances,
+    /// unmatched rows and columns, and which provenance entries differ.
+    /// Exit 0 within tolerance, 1 beyond it or unmatched rows, 2 error.
+    Diff {
+        a: PathBuf,
+        b: PathBuf,
+        /// Key column(s) to join on (repeatable; default obs_id).
+        #[arg(long = "key")]
+        keys: Vec<String>,
+        /// Absolute tolerance COLUMN=VALUE in the column's unit (repeatable);
+        /// columns not named must match exactly.
+        #[arg(long = "tolerance")]
+        tolerances: Vec<String>,
+        /// TOML file of tolerances: `default = …` and a [tolerances] table.
+        #[arg(long)]
+        tolerance_file: Option<PathBuf>,
+        /// Write the report as Markdown here.
+        #[arg(long)]
+        report: Option<PathBuf>,
+        /// Write the per-row differences (B − A) as Parquet here.
+        #[arg(long)]
+        rows: Option<PathBuf>,
+    },
+    /// Print the provenance metadata of an output file.
+    Provenance {
+        /// A Parquet file written by lapse.
+        file: PathBuf,
     },
     /// List the segments of SPK kernels: bodies, centres, frames, types, coverage.
     Kernels {
@@ -125,7 +159,16 @@ fn main() -> ExitCode {
 
 fn dispatch(cli: Cli) -> Result<ExitCode> {
     match cli.command {
-        Command::Run { pipeline, output } => run(pipeline, output, cli.quiet),
+        Command::Run { pipeline, output, threads, chunk_rows } => {
+            let opts = lapse::pipeline::RunOptions { output, chunk_rows };
+            match threads {
+                Some(n) => {
+                    let pool = rayon::ThreadPoolBuilder::new().num_threads(n).build().context("cannot start the worker threads")?;
+                    pool.install(|| run(pipeline, &opts, cli.quiet))
+                }
+                None => run(pipeline, &opts, cli.quiet),
+            }
+        }
         Command::Synth { pipeline, plan, output, noise_ns, noise_from_sigma, seed } => {
             let file = lapse::pipeline::PipelineFile::read(&pipeline)?;
             if file.kind != "pulsar" {
@@ -140,6 +183,53 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             let n = lapse::pipeline::pulsar::synthesize(&file, &plan, &output, noise, seed)?;
             if !cli.quiet {
                 println!("wrote {n} arrival times to {}", output.display());
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Diff { a, b, keys, tolerances, tolerance_file, report, rows } => {
+            let keys = if keys.is_empty() { vec!["obs_id".to_string()] } else { keys };
+            let mut tol = match &tolerance_file {
+                Some(p) => lapse::diff::Tolerances::from_toml_file(p)?,
+                None => lapse::diff::Tolerances::default(),
+            };
+            for t in &tolerances {
+                tol.add_arg(t)?;
+            }
+            let (r, row_diffs) = lapse::diff::diff(&a, &b, &keys, &tol, rows.is_some())?;
+            if !cli.quiet {
+                print!("{}", lapse::diff::render(&r, false));
+            }
+            if let Some(p) = &report {
+                std::fs::write(p, lapse::diff::render(&r, true)).with_context(|| format!("cannot write {}", p.display()))?;
+            }
+            if let (Some(p), Some(rd)) = (&rows, row_diffs) {
+                lapse::diff::write_rows(rd, &keys.join("+"), p)?;
+            }
+            Ok(if r.within_tolerance() { ExitCode::SUCCESS } else { ExitCode::from(1) })
+        }
+        Command::Provenance { file } => {
+            let md = lapse::io::read_parquet_metadata(&file)?;
+            if md.is_empty() {
+                bail!("{}: no key-value metadata (not written by lapse?)", file.display());
+            }
+            let mut text = None;
+            let mut others = 0;
+            for (k, v) in &md {
+                if k == "lapse.pipeline.text" {
+                    text = Some(v.clone());
+                    continue;
+                }
+                if !k.starts_with("lapse.") {
+                    others += 1;
+                    continue;
+                }
+                println!("{:<48} {v}", k.trim_start_matches("lapse."));
+            }
+            if others > 0 {
+                println!("({others} other metadata entries, e.g. the Arrow schema, not shown)");
+            }
+            if let Some(t) = text {
+                println!("\n# pipeline text (lapse.pipeline.text)\n{t}");
             }
             Ok(ExitCode::SUCCESS)
         }
@@ -158,8 +248,8 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
     }
 }
 
-fn run(pipeline: PathBuf, output: Option<PathBuf>, quiet: bool) -> Result<ExitCode> {
-    let s = lapse::pipeline::run(&pipeline, output.as_deref())?;
+fn run(pipeline: PathBuf, opts: &lapse::pipeline::RunOptions, quiet: bool) -> Result<ExitCode> {
+    let s = lapse::pipeline::run(&pipeline, opts)?;
     if !quiet {
         let mut out = std::io::stdout().lock();
         writeln!(out, "pipeline   {}", pipeline.display())?;

@@ -105,12 +105,33 @@ pub struct RunSummary {
     pub notes: Vec<String>,
 }
 
-/// Runs a pipeline file of any kind; `output` overrides its `[output] path`.
-pub fn run(path: &Path, output: Option<&Path>) -> Result<RunSummary, PipelineError> {
+/// Options of a run that do not change its results.
+#[derive(Clone, Debug)]
+pub struct RunOptions {
+    /// Write here instead of the pipeline's `[output] path`.
+    pub output: Option<PathBuf>,
+    /// Rows per parallel work unit (results do not depend on it).
+    pub chunk_rows: usize,
+}
+
+impl Default for RunOptions {
+    fn default() -> Self {
+        Self { output: None, chunk_rows: DEFAULT_CHUNK_ROWS }
+    }
+}
+
+/// Default rows per parallel work unit.
+pub const DEFAULT_CHUNK_ROWS: usize = 4096;
+
+/// Runs a pipeline file of any kind.
+pub fn run(path: &Path, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
     let file = PipelineFile::read(path)?;
+    if opts.chunk_rows == 0 {
+        return Err(PipelineError::Invalid { path: path.into(), message: "chunk size must be at least 1 row".into() });
+    }
     match file.kind.as_str() {
-        "timescales" => run_timescales(&file, output),
-        "pulsar" => run_pulsar(&file, output),
+        "timescales" => run_timescales(&file, opts),
+        "pulsar" => run_pulsar(&file, opts),
         other => Err(PipelineError::UnknownKind { path: path.into(), kind: other.into(), known: KINDS.join(", ") }),
     }
 }
@@ -207,8 +228,9 @@ impl Provenance {
         self.entries.push((format!("lapse.{key}"), value.to_string()));
     }
 
-    /// Records an input file: path, size and SHA-256, numbered per role.
-    pub fn add_input(&mut self, role: &str, path: &Path) -> Result<(), IoError> {
+    /// Records an input file: path, size, SHA-256 and what it covers,
+    /// numbered per role.
+    pub fn add_input(&mut self, role: &str, path: &Path, coverage: &str) -> Result<(), IoError> {
         let n = self.roles.entry(role.to_string()).or_default();
         let key = format!("input.{role}.{n}");
         *n += 1;
@@ -216,6 +238,9 @@ impl Provenance {
         self.set(&format!("{key}.path"), &path.display().to_string());
         self.set(&format!("{key}.bytes"), &bytes.len().to_string());
         self.set(&format!("{key}.sha256"), &sha256_hex(&bytes));
+        if !coverage.is_empty() {
+            self.set(&format!("{key}.coverage"), coverage);
+        }
         Ok(())
     }
 
@@ -229,5 +254,34 @@ impl Provenance {
     /// The key-value pairs, in the order they were set.
     pub fn finish(self) -> Vec<(String, String)> {
         self.entries
+    }
+}
+
+/// Coverage text of a leap-second table.
+pub fn leap_coverage(t: &crate::time::LeapSecondTable) -> String {
+    let d = |m: i64| {
+        let (y, mo, da) = crate::time::calendar::ymd_from_mjd(m);
+        format!("{y:04}-{mo:02}-{da:02}")
+    };
+    format!("{} steps, last {}; expires {}; UTC valid before {}", t.steps().len(), d(t.steps().last().map(|s| s.mjd).unwrap_or(0)), d(t.expires_mjd()), d(t.window_mjd()))
+}
+
+/// Coverage text of an SPK kernel (per target, TDB).
+pub fn kernel_coverage(k: &crate::ephemeris::SpkKernel) -> String {
+    let lo = k.segments.iter().map(|s| s.start_s).fold(f64::INFINITY, f64::min);
+    let hi = k.segments.iter().map(|s| s.end_s).fold(f64::NEG_INFINITY, f64::max);
+    let mjd = |s: f64| 51_544.5 + s / 86_400.0;
+    let mut targets: Vec<i32> = k.segments.iter().map(|s| s.target).collect();
+    targets.sort_unstable();
+    targets.dedup();
+    format!("{} segments, targets {:?}, TDB MJD {:.3} … {:.3}", k.segments.len(), targets, mjd(lo), mjd(hi))
+}
+
+/// Coverage text of an EOP table.
+pub fn eop_coverage(t: &crate::earth::EopTable) -> String {
+    let (a, b) = t.span_mjd();
+    match t.first_predicted_mjd() {
+        Some(p) => format!("UTC MJD {a} … {b}; predicted from MJD {p}"),
+        None => format!("UTC MJD {a} … {b}; no predictions"),
     }
 }

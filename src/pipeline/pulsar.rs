@@ -148,8 +148,8 @@ pub struct LoadedPulsar {
     pub input_path: PathBuf,
     pub output_path: PathBuf,
     pub subtract_weighted_mean: bool,
-    /// Input files and their roles, for provenance.
-    pub inputs: Vec<(String, PathBuf)>,
+    /// Input files: role, path, coverage text (for provenance).
+    pub inputs: Vec<(String, PathBuf, String)>,
     pub constants: Constants,
 }
 
@@ -163,43 +163,45 @@ pub fn load_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedP
         "site" => true,
         other => return Err(invalid(format!("[input] time_scale = '{other}': use \"utc\" or \"site\""))),
     };
-    let mut inputs: Vec<(String, PathBuf)> = Vec::new();
+    let mut inputs: Vec<(String, PathBuf, String)> = Vec::new();
     let (time, leap_path) = load_time(file, cfg.earth.leap_seconds.as_deref())?;
     if let Some(p) = leap_path {
-        inputs.push(("leap_seconds".into(), p));
+        inputs.push(("leap_seconds".into(), p, super::leap_coverage(time.leap_seconds())));
     }
     let kernels: Vec<PathBuf> = cfg.ephemeris.kernels.iter().map(|k| file.resolve(k)).collect();
     if kernels.is_empty() {
         return Err(invalid("[ephemeris] kernels is empty".into()));
     }
     let ephemeris = Ephemeris::load(&kernels).map_err(|e| invalid(format!("[ephemeris] {e}")))?;
-    for k in &kernels {
-        inputs.push(("kernel".into(), k.clone()));
+    for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
+        inputs.push(("kernel".into(), k.clone(), super::kernel_coverage(loaded)));
     }
     let constants = match &cfg.ephemeris.constants {
         Some(p) => {
             let p = file.resolve(p);
-            inputs.push(("constants".into(), p.clone()));
+            inputs.push(("constants".into(), p.clone(), String::new()));
             Constants::from_file(&p).map_err(|e| invalid(e.to_string()))?
         }
         None => Constants::builtin(),
     };
     let eop_path = file.resolve(&cfg.earth.eop);
     let eop = EopTable::from_file(&eop_path).map_err(|e| invalid(format!("[earth] {e}")))?;
-    inputs.push(("eop".into(), eop_path));
+    inputs.push(("eop".into(), eop_path, super::eop_coverage(&eop)));
     let mut earth = EarthModel::new(time, eop);
     earth.pole_offsets = cfg.earth.pole_offsets;
     let stations_path = file.resolve(&cfg.stations.catalog);
     let stations = StationCatalog::from_file(&stations_path).map_err(|e| invalid(format!("[stations] {e}")))?;
-    inputs.push(("stations".into(), stations_path));
+    inputs.push(("stations".into(), stations_path, format!("{} stations", stations.stations().len())));
     let mut clocks = HashMap::new();
     for (site, chain) in &cfg.clocks.sites {
         stations.get(site).map_err(|e| invalid(format!("[clocks] sites: {e}")))?;
         let mut tables = Vec::with_capacity(chain.len());
         for p in chain {
             let p = file.resolve(p);
-            tables.push(ClockTable::from_file(&p).map_err(|e| invalid(format!("[clocks] {e}")))?);
-            inputs.push((format!("clock:{site}"), p));
+            let t = ClockTable::from_file(&p).map_err(|e| invalid(format!("[clocks] {e}")))?;
+            let (a, b) = t.span_mjd();
+            inputs.push((format!("clock:{site}"), p, format!("MJD {a} … {b}")));
+            tables.push(t);
         }
         clocks.insert(site.clone(), tables);
     }
@@ -259,6 +261,7 @@ pub fn load_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedP
         dm_pc_cm3,
         shapiro,
         ppn_gamma,
+        chunk_rows: super::DEFAULT_CHUNK_ROWS,
     };
     Ok(LoadedPulsar {
         ctx,
@@ -348,9 +351,10 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
 }
 
 /// Runs a pulsar pipeline.
-pub fn run_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<RunSummary, PipelineError> {
+pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
     let mut prov = Provenance::start(file);
-    let mut lp = load_pulsar(file, output)?;
+    let mut lp = load_pulsar(file, opts.output.as_deref())?;
+    lp.ctx.chunk_rows = opts.chunk_rows;
     let df = read_parquet(&lp.input_path)?;
     let input = read_pulsar_input(&df, &lp.input_path)?;
     check_unique_ids(&input.obs_id, &lp.input_path)?;
@@ -421,9 +425,10 @@ pub fn run_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<RunSumma
         summary.notes.push(format!("{} rows used EXTRAPOLATED clock corrections (column clock_extrapolated)", good.iter().filter(|g| g.clock_extrapolated).count()));
     }
 
-    prov.add_input("observations", &lp.input_path)?;
-    for (role, p) in &lp.inputs {
-        prov.add_input(role, p)?;
+    let (lo, hi) = input.day.iter().flatten().fold((i64::MAX, i64::MIN), |(a, b), d| (a.min(*d), b.max(*d)));
+    prov.add_input("observations", &lp.input_path, &if lo <= hi { format!("arrival MJD {lo} … {hi}") } else { String::new() })?;
+    for (role, p, cov) in &lp.inputs {
+        prov.add_input(role, p, cov)?;
     }
     prov.set("constants.ephemeris", &lp.constants.ephemeris.name);
     for b in &lp.ctx.shapiro {

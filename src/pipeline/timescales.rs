@@ -61,11 +61,9 @@ pub struct TimescalesPipeline {
 /// Per-row result: (per-scale day/frac, tt−utc s, tdb−tt s) or a reason.
 type RowResult = Result<(Vec<(i64, f64)>, f64, f64), String>;
 
-/// Rows per parallel chunk; results do not depend on it.
-const CHUNK_ROWS: usize = 8192;
 
 /// Runs a `timescales` pipeline.
-pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> Result<RunSummary, PipelineError> {
+pub fn run_timescales(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
     let cfg: TimescalesPipeline = file.parse()?;
     let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
     let in_scale: TimeScale = cfg.input.scale.parse().map_err(|e: crate::time::TimeError| invalid(format!("[input] scale: {e}")))?;
@@ -91,7 +89,7 @@ pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> 
 
     let mut prov = super::Provenance::start(file);
     let input_path = file.resolve(&cfg.input.path);
-    let output_path = output.map(std::path::Path::to_path_buf).unwrap_or_else(|| file.resolve(&cfg.output.path));
+    let output_path = opts.output.clone().unwrap_or_else(|| file.resolve(&cfg.output.path));
     let df = read_parquet(&input_path)?;
     let cols = Columns { df: &df, path: &input_path };
     let ids = cols.str("obs_id")?;
@@ -102,7 +100,7 @@ pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> 
     let n = df.height();
     let rows: Vec<usize> = (0..n).collect();
     let results: Vec<RowResult> = rows
-        .par_chunks(CHUNK_ROWS)
+        .par_chunks(opts.chunk_rows)
         .flat_map_iter(|chunk| chunk.iter().map(|&i| convert_row(&ts, in_scale, &out_scales, days[i], fracs[i])))
         .collect();
 
@@ -119,9 +117,10 @@ pub fn run_timescales(file: &PipelineFile, output: Option<&std::path::Path>) -> 
     let (mut out, mut rejects) = assemble(&df, &input_path, &ok, &reasons, computed, &["mjd_day", "mjd_frac"])?;
 
     let mut summary = RunSummary::new(n, out.height(), rejects.height(), &output_path, &reasons);
-    prov.add_input("observations", &input_path)?;
+    let (lo, hi) = days.iter().flatten().fold((i64::MAX, i64::MIN), |(a, b), d| (a.min(*d), b.max(*d)));
+    prov.add_input("observations", &input_path, &if lo <= hi { format!("MJD {lo} … {hi}") } else { String::new() })?;
     if let Some(p) = &leap_path {
-        prov.add_input("leap_seconds", p)?;
+        prov.add_input("leap_seconds", p, &super::leap_coverage(ts.leap_seconds()))?;
     }
     prov.set("input.leap_seconds.table", ts.leap_seconds().source_name());
     prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);

@@ -136,6 +136,8 @@ pub struct PulsarContext {
     pub dm_pc_cm3: f64,
     pub shapiro: Vec<ShapiroBody>,
     pub ppn_gamma: f64,
+    /// Rows per parallel work unit (results do not depend on it).
+    pub chunk_rows: usize,
 }
 
 /// One arrival time to process.
@@ -263,7 +265,7 @@ impl PulsarContext {
     /// Processes a batch in parallel over fixed chunks; results are in input
     /// order and independent of the thread count.
     pub fn process_batch(&self, rows: &[Arrival]) -> Vec<Result<ArrivalResult, String>> {
-        rows.par_chunks(CHUNK_ROWS).flat_map_iter(|c| c.iter().map(|a| self.process(a))).collect()
+        rows.par_chunks(self.chunk_rows.max(1)).flat_map_iter(|c| c.iter().map(|a| self.process(a))).collect()
     }
 
     /// The site arrival time (in the input's time scale) at which the model
@@ -289,8 +291,6 @@ impl PulsarContext {
     }
 }
 
-/// Rows per parallel chunk; results do not depend on it.
-pub const CHUNK_ROWS: usize = 4096;
 
 /// Weighted statistics of residuals.
 #[derive(Clone, Copy, Debug, Default, PartialEq)]

@@ -1,0 +1,460 @@
+//! Release validation: compare two residual tables row by row and column by
+//! column, with tolerances, and explain differences by provenance.
+//!
+//! Memory stays bounded for large tables: the key columns are read once and
+//! indexed without copying the key strings, then every common column is read
+//! and compared one at a time (Parquet column projection).
+
+use std::collections::{BTreeMap, HashMap};
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use polars::prelude::*;
+
+use crate::io::{IoError, read_parquet_metadata, write_parquet};
+
+/// Errors of a diff (exit code 2).
+#[derive(Debug, thiserror::Error)]
+pub enum DiffError {
+    #[error(transparent)]
+    Io(#[from] IoError),
+    #[error("{path}: no key column '{column}'")]
+    NoKey { path: PathBuf, column: String },
+    #[error("{path}: key column '{column}' has type {dtype}; keys must be strings or integers")]
+    KeyType { path: PathBuf, column: String, dtype: String },
+    #[error("{path}: duplicate key {key} at rows {first} and {second}")]
+    DuplicateKey { path: PathBuf, key: String, first: usize, second: usize },
+    #[error("{path}: null key at row {row}")]
+    NullKey { path: PathBuf, row: usize },
+    #[error("tolerances: {0}")]
+    Tolerance(String),
+}
+
+/// Per-column tolerances (absolute, in the column's unit); columns not named
+/// use `default` (0: exact).
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Tolerances {
+    pub default: f64,
+    pub per_column: BTreeMap<String, f64>,
+}
+
+impl Tolerances {
+    /// Tolerance of a column.
+    pub fn of(&self, column: &str) -> f64 {
+        self.per_column.get(column).copied().unwrap_or(self.default)
+    }
+
+    /// Parses `COLUMN=VALUE`.
+    pub fn add_arg(&mut self, arg: &str) -> Result<(), DiffError> {
+        let (c, v) = arg.split_once('=').ok_or_else(|| DiffError::Tolerance(format!("'{arg}' is not COLUMN=VALUE")))?;
+        let v: f64 = v.trim().parse().map_err(|_| DiffError::Tolerance(format!("'{arg}': '{v}' is not a number")))?;
+        if !(v.is_finite() && v >= 0.0) {
+            return Err(DiffError::Tolerance(format!("'{arg}': tolerance must be finite and ≥ 0")));
+        }
+        self.per_column.insert(c.trim().to_string(), v);
+        Ok(())
+    }
+
+    /// Reads a TOML file: `default = 0.0` and a `[tolerances]` table of
+    /// `column = value`.
+    pub fn from_toml_file(path: &Path) -> Result<Self, DiffError> {
+        let text = std::fs::read_to_string(path).map_err(|e| DiffError::Tolerance(format!("{}: {e}", path.display())))?;
+        let v: toml::Table = toml::from_str(&text).map_err(|e| DiffError::Tolerance(format!("{}: {e}", path.display())))?;
+        let mut t = Tolerances::default();
+        for (k, val) in &v {
+            match (k.as_str(), val) {
+                ("default", toml::Value::Float(f)) => t.default = *f,
+                ("default", toml::Value::Integer(i)) => t.default = *i as f64,
+                ("tolerances", toml::Value::Table(tab)) => {
+                    for (c, x) in tab {
+                        let f = match x {
+                            toml::Value::Float(f) => *f,
+                            toml::Value::Integer(i) => *i as f64,
+                            _ => return Err(DiffError::Tolerance(format!("{}: tolerance of '{c}' is not a number", path.display()))),
+                        };
+                        t.per_column.insert(c.clone(), f);
+                    }
+                }
+                _ => return Err(DiffError::Tolerance(format!("{}: unknown key '{k}' (use default and [tolerances])", path.display()))),
+            }
+        }
+        Ok(t)
+    }
+}
+
+/// Comparison of one common column.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ColumnDiff {
+    pub column: String,
+    pub dtype_a: String,
+    pub dtype_b: String,
+    pub numeric: bool,
+    pub tolerance: f64,
+    /// Matched rows compared.
+    pub compared: usize,
+    /// Largest |B − A| (NaN-against-number counts as infinite).
+    pub max_abs_delta: f64,
+    pub rms_delta: f64,
+    /// Key of the row with the largest difference.
+    pub max_row_key: Option<String>,
+    /// Rows whose difference exceeds the tolerance (or differ, non-numeric).
+    pub exceeding: usize,
+}
+
+/// A provenance entry that differs between the two files.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ProvenanceChange {
+    pub key: String,
+    pub a: Option<String>,
+    pub b: Option<String>,
+    /// True when this change can explain numeric differences (inputs,
+    /// constants, pipeline); false for version, revision and run time.
+    pub explains: bool,
+}
+
+/// The whole comparison.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct DiffReport {
+    pub path_a: PathBuf,
+    pub path_b: PathBuf,
+    pub keys: Vec<String>,
+    pub rows_a: usize,
+    pub rows_b: usize,
+    pub matched: usize,
+    pub only_a: Vec<String>,
+    pub only_b: Vec<String>,
+    pub columns_only_a: Vec<String>,
+    pub columns_only_b: Vec<String>,
+    pub type_changes: Vec<(String, String, String)>,
+    pub columns: Vec<ColumnDiff>,
+    pub provenance: Vec<ProvenanceChange>,
+}
+
+impl DiffReport {
+    /// True when every compared column is within tolerance and every row matched
+    /// (and no column or type changed).
+    pub fn within_tolerance(&self) -> bool {
+        self.only_a.is_empty()
+            && self.only_b.is_empty()
+            && self.columns_only_a.is_empty()
+            && self.columns_only_b.is_empty()
+            && self.type_changes.is_empty()
+            && self.columns.iter().all(|c| c.exceeding == 0)
+    }
+}
+
+fn schema(path: &Path) -> Result<Vec<(String, DataType)>, DiffError> {
+    let f = std::fs::File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
+    let res = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| ParquetReader::new(f).with_slice(Some((0, 0))).finish()));
+    let df = match res {
+        Ok(Ok(df)) => df,
+        Ok(Err(e)) => return Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
+        Err(_) => return Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
+    };
+    Ok(df.schema().iter().map(|(n, t)| (n.to_string(), t.clone())).collect())
+}
+
+fn read_columns(path: &Path, cols: &[String]) -> Result<DataFrame, DiffError> {
+    let f = std::fs::File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
+    let res = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| ParquetReader::new(f).with_columns(Some(cols.to_vec())).finish()));
+    match res {
+        Ok(Ok(df)) => Ok(df),
+        Ok(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
+        Err(_) => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
+    }
+}
+
+/// Key of every row as text (keys joined with '|').
+fn key_strings(df: &DataFrame, keys: &[String], path: &Path) -> Result<Vec<String>, DiffError> {
+    let n = df.height();
+    let mut out = vec![String::new(); n];
+    for (j, k) in keys.iter().enumerate() {
+        let c = df.column(k).map_err(|_| DiffError::NoKey { path: path.into(), column: k.clone() })?;
+        let s = match c.dtype() {
+            DataType::String => c.clone(),
+            t if t.is_integer() => c.cast(&DataType::String).map_err(|e| IoError::Parquet { path: path.into(), message: e.to_string() })?,
+            t => return Err(DiffError::KeyType { path: path.into(), column: k.clone(), dtype: t.to_string() }),
+        };
+        let ca = s.str().map_err(|e| IoError::Parquet { path: path.into(), message: e.to_string() })?;
+        for (i, v) in ca.iter().enumerate() {
+            let v = v.ok_or(DiffError::NullKey { path: path.into(), row: i })?;
+            if j > 0 {
+                out[i].push('|');
+            }
+            out[i].push_str(v);
+        }
+    }
+    Ok(out)
+}
+
+fn is_numeric(t: &DataType) -> bool {
+    t.is_primitive_numeric()
+}
+
+/// Values of a numeric column as f64 (integers exactly up to 2^53), nulls as NaN.
+fn as_f64(c: &Column) -> Vec<f64> {
+    match c.cast(&DataType::Float64) {
+        Ok(c) => c.f64().map(|ca| ca.iter().map(|v| v.unwrap_or(f64::NAN)).collect()).unwrap_or_default(),
+        Err(_) => vec![f64::NAN; c.len()],
+    }
+}
+
+/// Values of a non-numeric column as text (nulls as None).
+fn as_text(c: &Column) -> Vec<Option<String>> {
+    match c.cast(&DataType::String) {
+        Ok(c) => c.str().map(|ca| ca.iter().map(|v| v.map(str::to_string)).collect()).unwrap_or_default(),
+        Err(_) => vec![None; c.len()],
+    }
+}
+
+/// Provenance keys that do not explain a numeric difference on their own.
+fn explains(key: &str) -> bool {
+    !(key == "lapse.version" || key == "lapse.source_revision" || key == "lapse.run.started_utc" || key == "lapse.pipeline.path" || key.ends_with(".path"))
+}
+
+/// Index of keys → row, refusing duplicates (borrows the key strings).
+fn key_index<'a>(k: &'a [String], path: &Path) -> Result<HashMap<&'a str, usize>, DiffError> {
+    let mut m = HashMap::with_capacity(k.len());
+    for (i, s) in k.iter().enumerate() {
+        if let Some(first) = m.insert(s.as_str(), i) {
+            return Err(DiffError::DuplicateKey { path: path.into(), key: s.clone(), first, second: i });
+        }
+    }
+    Ok(m)
+}
+
+/// Per-row differences, for `--rows`.
+pub struct RowDiffs {
+    pub keys: Vec<String>,
+    pub status: Vec<&'static str>,
+    pub columns: Vec<(String, Vec<f64>)>,
+}
+
+/// Compares two tables.
+///
+/// `keys`: join columns (default `obs_id`). Returns the report and, when
+/// `want_rows`, the per-row differences (matched rows with any difference,
+/// and unmatched rows).
+pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, want_rows: bool) -> Result<(DiffReport, Option<RowDiffs>), DiffError> {
+    let sa = schema(path_a)?;
+    let sb = schema(path_b)?;
+    for k in keys {
+        if !sa.iter().any(|(n, _)| n == k) {
+            return Err(DiffError::NoKey { path: path_a.into(), column: k.clone() });
+        }
+        if !sb.iter().any(|(n, _)| n == k) {
+            return Err(DiffError::NoKey { path: path_b.into(), column: k.clone() });
+        }
+    }
+    let ka = key_strings(&read_columns(path_a, keys)?, keys, path_a)?;
+    let kb = key_strings(&read_columns(path_b, keys)?, keys, path_b)?;
+    let ia = key_index(&ka, path_a)?;
+    let ib = key_index(&kb, path_b)?;
+    // Matched pairs in A's order.
+    let pairs: Vec<(usize, usize)> = ka.iter().enumerate().filter_map(|(i, k)| ib.get(k.as_str()).map(|j| (i, *j))).collect();
+    let only_a: Vec<String> = ka.iter().filter(|k| !ib.contains_key(k.as_str())).cloned().collect();
+    let only_b: Vec<String> = kb.iter().filter(|k| !ia.contains_key(k.as_str())).cloned().collect();
+    drop(ia);
+
+    let mut report = DiffReport {
+        path_a: path_a.into(),
+        path_b: path_b.into(),
+        keys: keys.to_vec(),
+        rows_a: ka.len(),
+        rows_b: kb.len(),
+        matched: pairs.len(),
+        only_a,
+        only_b,
+        ..Default::default()
+    };
+    let tb: HashMap<&str, &DataType> = sb.iter().map(|(n, t)| (n.as_str(), t)).collect();
+    let ta: HashMap<&str, &DataType> = sa.iter().map(|(n, t)| (n.as_str(), t)).collect();
+    report.columns_only_a = sa.iter().filter(|(n, _)| !tb.contains_key(n.as_str())).map(|(n, _)| n.clone()).collect();
+    report.columns_only_b = sb.iter().filter(|(n, _)| !ta.contains_key(n.as_str())).map(|(n, _)| n.clone()).collect();
+
+    let mut row_changed = vec![false; pairs.len()];
+    let mut row_cols: Vec<(String, Vec<f64>)> = Vec::new();
+    for (name, dta) in &sa {
+        if keys.contains(name) {
+            continue;
+        }
+        let Some(dtb) = tb.get(name.as_str()) else { continue };
+        if dta != *dtb {
+            report.type_changes.push((name.clone(), dta.to_string(), dtb.to_string()));
+        }
+        let tolerance = tol.of(name);
+        let ca = read_columns(path_a, std::slice::from_ref(name))?;
+        let cb = read_columns(path_b, std::slice::from_ref(name))?;
+        let (ca, cb) = (ca.column(name).map_err(|e| IoError::Parquet { path: path_a.into(), message: e.to_string() })?, cb.column(name).map_err(|e| IoError::Parquet { path: path_b.into(), message: e.to_string() })?);
+        let numeric = is_numeric(dta) && is_numeric(dtb);
+        let mut cd = ColumnDiff {
+            column: name.clone(),
+            dtype_a: dta.to_string(),
+            dtype_b: dtb.to_string(),
+            numeric,
+            tolerance,
+            compared: pairs.len(),
+            max_abs_delta: 0.0,
+            rms_delta: 0.0,
+            max_row_key: None,
+            exceeding: 0,
+        };
+        if numeric {
+            let (va, vb) = (as_f64(ca), as_f64(cb));
+            let mut deltas = if want_rows { Vec::with_capacity(pairs.len()) } else { Vec::new() };
+            let (mut sum2, mut finite_n) = (0.0f64, 0usize);
+            for (p, &(i, j)) in pairs.iter().enumerate() {
+                let (x, y) = (va[i], vb[j]);
+                // NaN against NaN is equal; NaN against a number is a difference.
+                let d = if x.is_nan() && y.is_nan() { 0.0 } else { y - x };
+                let ad = if d.is_nan() { f64::INFINITY } else { d.abs() };
+                if d.is_finite() {
+                    sum2 += d * d;
+                    finite_n += 1;
+                }
+                if ad > cd.max_abs_delta || (cd.max_row_key.is_none() && ad > 0.0) {
+                    cd.max_abs_delta = ad;
+                    cd.max_row_key = Some(ka[i].clone());
+                }
+                if ad > tolerance {
+                    cd.exceeding += 1;
+                }
+                if ad > 0.0 {
+                    row_changed[p] = true;
+                }
+                if want_rows {
+                    deltas.push(d);
+                }
+            }
+            cd.rms_delta = if finite_n > 0 { (sum2 / finite_n as f64).sqrt() } else { 0.0 };
+            if want_rows {
+                row_cols.push((format!("{name}_delta"), deltas));
+            }
+        } else {
+            let (va, vb) = (as_text(ca), as_text(cb));
+            for (p, &(i, j)) in pairs.iter().enumerate() {
+                if va[i] != vb[j] {
+                    cd.exceeding += 1;
+                    row_changed[p] = true;
+                    if cd.max_row_key.is_none() {
+                        cd.max_row_key = Some(ka[i].clone());
+                    }
+                }
+            }
+            cd.max_abs_delta = if cd.exceeding > 0 { f64::INFINITY } else { 0.0 };
+        }
+        report.columns.push(cd);
+    }
+
+    // Provenance.
+    let ma: BTreeMap<String, String> = read_parquet_metadata(path_a)?.into_iter().collect();
+    let mb: BTreeMap<String, String> = read_parquet_metadata(path_b)?.into_iter().collect();
+    let all: std::collections::BTreeSet<&String> = ma.keys().chain(mb.keys()).filter(|k| k.starts_with("lapse.")).collect();
+    for k in all {
+        let (a, b) = (ma.get(k), mb.get(k));
+        if a != b && k != "lapse.run.started_utc" {
+            report.provenance.push(ProvenanceChange { key: k.clone(), a: a.cloned(), b: b.cloned(), explains: explains(k) });
+        }
+    }
+
+    let rows = want_rows.then(|| {
+        let mut keys_out = Vec::new();
+        let mut status = Vec::new();
+        let sel: Vec<usize> = (0..pairs.len()).filter(|p| row_changed[*p]).collect();
+        for &p in &sel {
+            keys_out.push(ka[pairs[p].0].clone());
+            status.push("changed");
+        }
+        let n_changed = sel.len();
+        for k in &report.only_a {
+            keys_out.push(k.clone());
+            status.push("only_a");
+        }
+        for k in &report.only_b {
+            keys_out.push(k.clone());
+            status.push("only_b");
+        }
+        let extra = keys_out.len() - n_changed;
+        let columns = row_cols
+            .into_iter()
+            .map(|(n, d)| {
+                let mut v: Vec<f64> = sel.iter().map(|&p| d[p]).collect();
+                v.extend(std::iter::repeat_n(f64::NAN, extra));
+                (n, v)
+            })
+            .collect();
+        RowDiffs { keys: keys_out, status, columns }
+    });
+    Ok((report, rows))
+}
+
+/// Writes the per-row differences as Parquet.
+pub fn write_rows(rows: RowDiffs, key_name: &str, path: &Path) -> Result<(), DiffError> {
+    let mut cols = vec![Column::new(key_name.into(), rows.keys), Column::new("status".into(), rows.status.iter().map(|s| s.to_string()).collect::<Vec<_>>())];
+    for (n, v) in rows.columns {
+        cols.push(Column::new(n.into(), v));
+    }
+    let mut df = DataFrame::new_infer_height(cols).map_err(|e| IoError::Write { path: path.into(), message: e.to_string() })?;
+    write_parquet(&mut df, path, &[("lapse.diff.rows".into(), "per-row differences B − A".into())])?;
+    Ok(())
+}
+
+fn fmt_delta(x: f64) -> String {
+    if x == 0.0 { "0".into() } else if x.is_infinite() { "NaN/≠".into() } else { format!("{x:.3e}") }
+}
+
+/// The report as a plain-text table (stdout) or Markdown.
+pub fn render(r: &DiffReport, markdown: bool) -> String {
+    let mut s = String::new();
+    let (h, sep) = if markdown { ("## ", "|") } else { ("", " ") };
+    let _ = writeln!(s, "{h}lapse diff: A = {}, B = {}", r.path_a.display(), r.path_b.display());
+    if markdown {
+        s.push('\n');
+    }
+    let _ = writeln!(s, "key {}: rows A {}, rows B {}, matched {}, only in A {}, only in B {}", r.keys.join("+"), r.rows_a, r.rows_b, r.matched, r.only_a.len(), r.only_b.len());
+    for (label, v) in [("only in A", &r.only_a), ("only in B", &r.only_b)] {
+        if !v.is_empty() {
+            let shown: Vec<&str> = v.iter().take(10).map(String::as_str).collect();
+            let _ = writeln!(s, "  rows {label}: {}{}", shown.join(", "), if v.len() > 10 { format!(" … (+{})", v.len() - 10) } else { String::new() });
+        }
+    }
+    if !r.columns_only_a.is_empty() {
+        let _ = writeln!(s, "columns only in A: {}", r.columns_only_a.join(", "));
+    }
+    if !r.columns_only_b.is_empty() {
+        let _ = writeln!(s, "columns only in B: {}", r.columns_only_b.join(", "));
+    }
+    for (c, a, b) in &r.type_changes {
+        let _ = writeln!(s, "type change: {c}: {a} → {b}");
+    }
+    s.push('\n');
+    if markdown {
+        let _ = writeln!(s, "| column | compared | max abs Δ | RMS Δ | row of max | tolerance | exceeding |\n|---|---:|---:|---:|---|---:|---:|");
+    } else {
+        let _ = writeln!(s, "{:<24} {:>9} {:>11} {:>11} {:<24} {:>10} {:>9}", "column", "compared", "max |Δ|", "RMS Δ", "row of max", "tolerance", "exceeding");
+    }
+    for c in &r.columns {
+        let row = c.max_row_key.clone().unwrap_or_else(|| "-".into());
+        let rms = if c.numeric { fmt_delta(c.rms_delta) } else { "-".into() };
+        if markdown {
+            let _ = writeln!(s, "{sep} {} {sep} {} {sep} {} {sep} {} {sep} {} {sep} {:e} {sep} {} {sep}", c.column, c.compared, fmt_delta(c.max_abs_delta), rms, row, c.tolerance, c.exceeding);
+        } else {
+            let flag = if c.exceeding > 0 { "  ✗" } else { "" };
+            let _ = writeln!(s, "{:<24} {:>9} {:>11} {:>11} {:<24} {:>10.3e} {:>9}{flag}", c.column, c.compared, fmt_delta(c.max_abs_delta), rms, row, c.tolerance, c.exceeding);
+        }
+    }
+    s.push('\n');
+    if r.provenance.is_empty() {
+        let _ = writeln!(s, "provenance: identical (apart from the run start time)");
+    } else {
+        let _ = writeln!(s, "{h}provenance entries that differ:");
+        for p in &r.provenance {
+            let short = |v: &Option<String>| v.as_deref().map(|x| if x.len() > 60 { format!("{}…", &x[..x.char_indices().nth(60).map(|c| c.0).unwrap_or(x.len())]) } else { x.to_string() }).unwrap_or_else(|| "(absent)".into());
+            let _ = writeln!(s, "  {} {}: {} → {}", if p.explains { "[explains]" } else { "[does not explain]" }, p.key, short(&p.a).replace('\n', " "), short(&p.b).replace('\n', " "));
+        }
+        let explaining = r.provenance.iter().filter(|p| p.explains).count();
+        let _ = writeln!(s, "{} of {} differing entries can explain numeric differences (inputs, constants, pipeline); version and revision alone cannot.", explaining, r.provenance.len());
+    }
+    let _ = writeln!(s, "\nresult: {}", if r.within_tolerance() { "WITHIN TOLERANCE" } else { "DIFFERENCES BEYOND TOLERANCE" });
+    s
+}
