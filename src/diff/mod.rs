@@ -110,6 +110,9 @@ pub struct ProvenanceChange {
     /// True when this change can explain numeric differences (inputs,
     /// constants, pipeline); false for version, revision and run time.
     pub explains: bool,
+    /// True for entries that record results (residual statistics, row
+    /// counts): consequences, not causes.
+    pub is_result: bool,
 }
 
 /// The whole comparison.
@@ -164,17 +167,55 @@ fn read_columns(path: &Path, cols: &[String]) -> Result<DataFrame, DiffError> {
     }
 }
 
+/// The keys of a table packed in one buffer (no per-row allocation).
+struct KeyBuf {
+    data: String,
+    /// offs[i]..offs[i+1] is row i's key.
+    offs: Vec<usize>,
+}
+
+impl KeyBuf {
+    fn get(&self, i: usize) -> &str {
+        &self.data[self.offs[i]..self.offs[i + 1]]
+    }
+    fn len(&self) -> usize {
+        self.offs.len() - 1
+    }
+}
+
+/// Key of every row as text (keys joined with '|'), packed.
+fn key_buf(df: &DataFrame, keys: &[String], path: &Path) -> Result<KeyBuf, DiffError> {
+    if keys.len() == 1 {
+        let c = df.column(&keys[0]).map_err(|_| DiffError::NoKey { path: path.into(), column: keys[0].clone() })?;
+        let s = key_as_string_column(c, &keys[0], path)?;
+        let ca = s.str().map_err(|e| IoError::Parquet { path: path.into(), message: e.to_string() })?;
+        let mut data = String::new();
+        let mut offs = Vec::with_capacity(ca.len() + 1);
+        offs.push(0);
+        for (i, v) in ca.iter().enumerate() {
+            data.push_str(v.ok_or(DiffError::NullKey { path: path.into(), row: i })?);
+            offs.push(data.len());
+        }
+        return Ok(KeyBuf { data, offs });
+    }
+    let parts = key_strings(df, keys, path)?;
+    let mut data = String::with_capacity(parts.iter().map(|p| p.len()).sum());
+    let mut offs = Vec::with_capacity(parts.len() + 1);
+    offs.push(0);
+    for p in parts {
+        data.push_str(&p);
+        offs.push(data.len());
+    }
+    Ok(KeyBuf { data, offs })
+}
+
 /// Key of every row as text (keys joined with '|').
 fn key_strings(df: &DataFrame, keys: &[String], path: &Path) -> Result<Vec<String>, DiffError> {
     let n = df.height();
     let mut out = vec![String::new(); n];
     for (j, k) in keys.iter().enumerate() {
         let c = df.column(k).map_err(|_| DiffError::NoKey { path: path.into(), column: k.clone() })?;
-        let s = match c.dtype() {
-            DataType::String => c.clone(),
-            t if t.is_integer() => c.cast(&DataType::String).map_err(|e| IoError::Parquet { path: path.into(), message: e.to_string() })?,
-            t => return Err(DiffError::KeyType { path: path.into(), column: k.clone(), dtype: t.to_string() }),
-        };
+        let s = key_as_string_column(c, k, path)?;
         let ca = s.str().map_err(|e| IoError::Parquet { path: path.into(), message: e.to_string() })?;
         for (i, v) in ca.iter().enumerate() {
             let v = v.ok_or(DiffError::NullKey { path: path.into(), row: i })?;
@@ -185,6 +226,14 @@ fn key_strings(df: &DataFrame, keys: &[String], path: &Path) -> Result<Vec<Strin
         }
     }
     Ok(out)
+}
+
+fn key_as_string_column(c: &Column, k: &str, path: &Path) -> Result<Column, DiffError> {
+    match c.dtype() {
+        DataType::String => Ok(c.clone()),
+        t if t.is_integer() => c.cast(&DataType::String).map_err(|e| IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
+        t => Err(DiffError::KeyType { path: path.into(), column: k.to_string(), dtype: t.to_string() }),
+    }
 }
 
 fn is_numeric(t: &DataType) -> bool {
@@ -207,20 +256,38 @@ fn as_text(c: &Column) -> Vec<Option<String>> {
     }
 }
 
-/// Provenance keys that do not explain a numeric difference on their own.
-fn explains(key: &str) -> bool {
-    !(key == "lapse.version" || key == "lapse.source_revision" || key == "lapse.run.started_utc" || key == "lapse.pipeline.path" || key.ends_with(".path"))
+/// Provenance keys that record results of the run.
+fn is_result(key: &str) -> bool {
+    key.starts_with("lapse.residuals.") || key.starts_with("lapse.rows.")
 }
 
-/// Index of keys → row, refusing duplicates (borrows the key strings).
-fn key_index<'a>(k: &'a [String], path: &Path) -> Result<HashMap<&'a str, usize>, DiffError> {
+/// Provenance keys that can explain a numeric difference: inputs, constants,
+/// pipeline text — not the version, revision, run time or file locations.
+fn explains(key: &str) -> bool {
+    !(is_result(key) || key == "lapse.version" || key == "lapse.source_revision" || key == "lapse.run.started_utc" || key == "lapse.pipeline.path" || key.ends_with(".path"))
+}
+
+/// Index of keys → row, refusing duplicates (borrows the key buffer).
+fn key_index<'a>(k: &'a KeyBuf, path: &Path) -> Result<HashMap<&'a str, usize>, DiffError> {
     let mut m = HashMap::with_capacity(k.len());
-    for (i, s) in k.iter().enumerate() {
-        if let Some(first) = m.insert(s.as_str(), i) {
-            return Err(DiffError::DuplicateKey { path: path.into(), key: s.clone(), first, second: i });
+    for i in 0..k.len() {
+        if let Some(first) = m.insert(k.get(i), i) {
+            return Err(DiffError::DuplicateKey { path: path.into(), key: k.get(i).to_string(), first, second: i });
         }
     }
     Ok(m)
+}
+
+/// Refuses duplicate keys without keeping an index (sort of row numbers).
+fn check_unique(k: &KeyBuf, path: &Path) -> Result<(), DiffError> {
+    let mut idx: Vec<u32> = (0..k.len() as u32).collect();
+    idx.sort_unstable_by(|a, b| k.get(*a as usize).cmp(k.get(*b as usize)).then(a.cmp(b)));
+    for w in idx.windows(2) {
+        if k.get(w[0] as usize) == k.get(w[1] as usize) {
+            return Err(DiffError::DuplicateKey { path: path.into(), key: k.get(w[0] as usize).to_string(), first: w[0] as usize, second: w[1] as usize });
+        }
+    }
+    Ok(())
 }
 
 /// Per-row differences, for `--rows`.
@@ -246,15 +313,25 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
             return Err(DiffError::NoKey { path: path_b.into(), column: k.clone() });
         }
     }
-    let ka = key_strings(&read_columns(path_a, keys)?, keys, path_a)?;
-    let kb = key_strings(&read_columns(path_b, keys)?, keys, path_b)?;
-    let ia = key_index(&ka, path_a)?;
+    let ka = key_buf(&read_columns(path_a, keys)?, keys, path_a)?;
+    let kb = key_buf(&read_columns(path_b, keys)?, keys, path_b)?;
+    check_unique(&ka, path_a)?;
     let ib = key_index(&kb, path_b)?;
-    // Matched pairs in A's order.
-    let pairs: Vec<(usize, usize)> = ka.iter().enumerate().filter_map(|(i, k)| ib.get(k.as_str()).map(|j| (i, *j))).collect();
-    let only_a: Vec<String> = ka.iter().filter(|k| !ib.contains_key(k.as_str())).cloned().collect();
-    let only_b: Vec<String> = kb.iter().filter(|k| !ia.contains_key(k.as_str())).cloned().collect();
-    drop(ia);
+    // Matched pairs in A's order; B rows never matched are "only in B".
+    let mut matched_b = vec![false; kb.len()];
+    let mut pairs: Vec<(u32, u32)> = Vec::with_capacity(ka.len().min(kb.len()));
+    let mut only_a: Vec<String> = Vec::new();
+    for i in 0..ka.len() {
+        match ib.get(ka.get(i)) {
+            Some(&j) => {
+                matched_b[j] = true;
+                pairs.push((i as u32, j as u32));
+            }
+            None => only_a.push(ka.get(i).to_string()),
+        }
+    }
+    drop(ib);
+    let only_b: Vec<String> = (0..kb.len()).filter(|j| !matched_b[*j]).map(|j| kb.get(j).to_string()).collect();
 
     let mut report = DiffReport {
         path_a: path_a.into(),
@@ -304,6 +381,7 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
             let mut deltas = if want_rows { Vec::with_capacity(pairs.len()) } else { Vec::new() };
             let (mut sum2, mut finite_n) = (0.0f64, 0usize);
             for (p, &(i, j)) in pairs.iter().enumerate() {
+                let (i, j) = (i as usize, j as usize);
                 let (x, y) = (va[i], vb[j]);
                 // NaN against NaN is equal; NaN against a number is a difference.
                 let d = if x.is_nan() && y.is_nan() { 0.0 } else { y - x };
@@ -314,7 +392,7 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
                 }
                 if ad > cd.max_abs_delta || (cd.max_row_key.is_none() && ad > 0.0) {
                     cd.max_abs_delta = ad;
-                    cd.max_row_key = Some(ka[i].clone());
+                    cd.max_row_key = Some(ka.get(i).to_string());
                 }
                 if ad > tolerance {
                     cd.exceeding += 1;
@@ -333,11 +411,12 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
         } else {
             let (va, vb) = (as_text(ca), as_text(cb));
             for (p, &(i, j)) in pairs.iter().enumerate() {
+                let (i, j) = (i as usize, j as usize);
                 if va[i] != vb[j] {
                     cd.exceeding += 1;
                     row_changed[p] = true;
                     if cd.max_row_key.is_none() {
-                        cd.max_row_key = Some(ka[i].clone());
+                        cd.max_row_key = Some(ka.get(i).to_string());
                     }
                 }
             }
@@ -353,7 +432,7 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
     for k in all {
         let (a, b) = (ma.get(k), mb.get(k));
         if a != b && k != "lapse.run.started_utc" {
-            report.provenance.push(ProvenanceChange { key: k.clone(), a: a.cloned(), b: b.cloned(), explains: explains(k) });
+            report.provenance.push(ProvenanceChange { key: k.clone(), a: a.cloned(), b: b.cloned(), explains: explains(k), is_result: is_result(k) });
         }
     }
 
@@ -362,7 +441,7 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
         let mut status = Vec::new();
         let sel: Vec<usize> = (0..pairs.len()).filter(|p| row_changed[*p]).collect();
         for &p in &sel {
-            keys_out.push(ka[pairs[p].0].clone());
+            keys_out.push(ka.get(pairs[p].0 as usize).to_string());
             status.push("changed");
         }
         let n_changed = sel.len();
@@ -450,10 +529,15 @@ pub fn render(r: &DiffReport, markdown: bool) -> String {
         let _ = writeln!(s, "{h}provenance entries that differ:");
         for p in &r.provenance {
             let short = |v: &Option<String>| v.as_deref().map(|x| if x.len() > 60 { format!("{}…", &x[..x.char_indices().nth(60).map(|c| c.0).unwrap_or(x.len())]) } else { x.to_string() }).unwrap_or_else(|| "(absent)".into());
-            let _ = writeln!(s, "  {} {}: {} → {}", if p.explains { "[explains]" } else { "[does not explain]" }, p.key, short(&p.a).replace('\n', " "), short(&p.b).replace('\n', " "));
+            let label = if p.is_result { "[result]" } else if p.explains { "[explains]" } else { "[does not explain]" };
+            let _ = writeln!(s, "  {label} {}: {} → {}", p.key, short(&p.a).replace('\n', " "), short(&p.b).replace('\n', " "));
         }
         let explaining = r.provenance.iter().filter(|p| p.explains).count();
-        let _ = writeln!(s, "{} of {} differing entries can explain numeric differences (inputs, constants, pipeline); version and revision alone cannot.", explaining, r.provenance.len());
+        if explaining == 0 && r.columns.iter().any(|c| c.exceeding > 0) {
+            let _ = writeln!(s, "No input, constant or pipeline change explains the differences: only version, revision or locations differ.");
+        } else {
+            let _ = writeln!(s, "{explaining} differing entries can explain numeric differences (inputs, constants, pipeline); version and revision alone cannot.");
+        }
     }
     let _ = writeln!(s, "\nresult: {}", if r.within_tolerance() { "WITHIN TOLERANCE" } else { "DIFFERENCES BEYOND TOLERANCE" });
     s
