@@ -13,9 +13,11 @@ pub mod diff;
 pub mod earth;
 pub mod ephemeris;
 pub mod io;
+pub mod light_time;
 pub mod pipeline;
 pub mod pulsar;
 pub mod time;
+pub mod tracking;
 
 /// Version of lapse (from Cargo.toml).
 pub const VERSION: &str = env!("CARGO_PKG_VERSION");

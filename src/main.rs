@@ -171,8 +171,18 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
         }
         Command::Synth { pipeline, plan, output, noise_ns, noise_from_sigma, seed } => {
             let file = lapse::pipeline::PipelineFile::read(&pipeline)?;
+            if file.kind == "tracking" {
+                if noise_ns.is_some() {
+                    bail!("--noise-ns is for pulsar pipelines; tracking noise comes from each row's sigma (--noise-from-sigma)");
+                }
+                let n = lapse::pipeline::tracking::synthesize_tracking(&file, &plan, &output, noise_from_sigma, seed)?;
+                if !cli.quiet {
+                    println!("wrote {n} measurements to {}", output.display());
+                }
+                return Ok(ExitCode::SUCCESS);
+            }
             if file.kind != "pulsar" {
-                bail!("{}: synth needs a pulsar pipeline (kind = \"pulsar\"), found '{}'", pipeline.display(), file.kind);
+                bail!("{}: synth needs a pulsar or tracking pipeline, found '{}'", pipeline.display(), file.kind);
             }
             let noise = match (noise_ns, noise_from_sigma) {
                 (Some(ns), _) if !(ns.is_finite() && ns >= 0.0) => bail!("--noise-ns {ns} must be finite and ≥ 0"),

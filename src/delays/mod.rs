@@ -159,6 +159,54 @@ pub fn barycentric_frequency_mhz(f_obs_mhz: f64, n: &Vector3<f64>, observer_velo
     f_obs_mhz * (1.0 - n.dot(observer_velocity_m_s) / C_M_S)
 }
 
+/// Most Shapiro bodies a pipeline may list.
+pub const MAX_SHAPIRO_BODIES: usize = 10;
+
+/// A body whose Shapiro delay is applied.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ShapiroBody {
+    /// Our name, used in the output column `shapiro_<name>_s`.
+    pub name: String,
+    /// NAIF id of the body (system barycentre for planets with moons).
+    pub naif_id: i32,
+    /// GM, m³/s², from the ephemeris constants.
+    pub gm_m3_s2: f64,
+}
+
+/// Shapiro body names accepted in pipelines → (NAIF id, constants key).
+pub const SHAPIRO_BODY_NAMES: &[(&str, i32, &str)] = &[
+    ("sun", 10, "sun"),
+    ("mercury", 1, "mercury_barycenter"),
+    ("venus", 2, "venus_barycenter"),
+    ("moon", 301, "moon"),
+    ("mars", 4, "mars_barycenter"),
+    ("jupiter", 5, "jupiter_barycenter"),
+    ("saturn", 6, "saturn_barycenter"),
+    ("uranus", 7, "uranus_barycenter"),
+    ("neptune", 8, "neptune_barycenter"),
+];
+
+/// Resolves Shapiro body names against the ephemeris constants.
+pub fn shapiro_bodies(names: &[String], constants: &crate::constants::EphemerisConstants) -> Result<Vec<ShapiroBody>, String> {
+    if names.len() > MAX_SHAPIRO_BODIES {
+        return Err(format!("at most {MAX_SHAPIRO_BODIES} Shapiro bodies"));
+    }
+    let mut out = Vec::with_capacity(names.len());
+    for n in names {
+        let key = n.trim().to_ascii_lowercase();
+        let (name, id, ckey) = SHAPIRO_BODY_NAMES
+            .iter()
+            .find(|(b, _, _)| *b == key)
+            .ok_or_else(|| format!("unknown Shapiro body '{n}' (known: {})", SHAPIRO_BODY_NAMES.iter().map(|b| b.0).collect::<Vec<_>>().join(", ")))?;
+        if out.iter().any(|b: &ShapiroBody| b.name == *name) {
+            return Err(format!("Shapiro body '{n}' listed twice"));
+        }
+        let gm_km3_s2 = constants.gm_km3_s2(ckey).ok_or_else(|| format!("no GM for '{ckey}' in the constants of {}", constants.name))?;
+        out.push(ShapiroBody { name: name.to_string(), naif_id: *id, gm_m3_s2: gm_km3_s2 * 1e9 });
+    }
+    Ok(out)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -57,6 +57,8 @@ pub struct StationState {
     pub gcrs_velocity_m_s: Vector3<f64>,
     /// Barycentric state of the Earth at `tdb` (km, km/s).
     pub earth_ssb: StateKm,
+    /// Local vertical of the station in the GCRS (unit; zero at the geocentre).
+    pub up_gcrs: Vector3<f64>,
     /// BCRS position (m) and velocity (m/s) of the station, first order:
     /// x_E + x_GCRS.
     pub bcrs_position_m: Vector3<f64>,
@@ -129,11 +131,18 @@ impl EarthModel {
 
     /// GCRS position (m) and velocity (m/s) of a station at a UTC epoch.
     pub fn station_gcrs(&self, station: &Station, utc: &Epoch) -> Result<(Vector3<f64>, Vector3<f64>, EopValues, Epoch), EarthError> {
+        let (p, v, _, eop, tt) = self.station_gcrs_with_up(station, utc)?;
+        Ok((p, v, eop, tt))
+    }
+
+    /// As [`Self::station_gcrs`], with the local vertical in the GCRS.
+    fn station_gcrs_with_up(&self, station: &Station, utc: &Epoch) -> Result<(Vector3<f64>, Vector3<f64>, Vector3<f64>, EopValues, Epoch), EarthError> {
         let (r, eop, tt) = self.rotation_at(utc)?;
         let mjd = utc.mjd_day() as f64 + ratio_to_f64(utc.fs_of_day(), FS_PER_DAY);
         let x = Vector3::from(station.itrf_at_m(mjd));
         let (p, v) = r.apply(&x);
-        Ok((p, v, eop, tt))
+        let up = r.matrix * Vector3::from(station.up_itrs);
+        Ok((p, v, up, eop, tt))
     }
 
     /// The full station state at a UTC epoch: GCRS, topocentric TDB − TT,
@@ -152,7 +161,7 @@ impl EarthModel {
     /// IERS Conventions 2010, ch. 10, eq. 10.9 (topocentric TDB − TT term
     /// v_E · x / c²) and ch. 11 (BCRS position of a terrestrial station).
     pub fn station_state(&self, eph: &Ephemeris, station: &Station, utc: &Epoch) -> Result<StationState, EarthError> {
-        let (x_gcrs, v_gcrs, eop, tt) = self.station_gcrs(station, utc)?;
+        let (x_gcrs, v_gcrs, up_gcrs, eop, tt) = self.station_gcrs_with_up(station, utc)?;
         // TDB − TT = Δ_geo(TT) + observer term (IERS Conventions 2010 eq. 10.9):
         // the 787-term series depends on TT only, so it is evaluated once for
         // both the geocentric and the topocentric TDB (same formula and
@@ -181,6 +190,7 @@ impl EarthModel {
             gcrs_position_m: x_gcrs,
             gcrs_velocity_m_s: v_gcrs,
             earth_ssb: earth,
+            up_gcrs,
             bcrs_position_m,
             bcrs_velocity_m_s,
         })
@@ -203,6 +213,22 @@ impl EarthModel {
             eop = Some(st.eop);
         }
         Ok((term_s, eop.expect("loop ran")))
+    }
+
+    /// The station state at a TDB epoch (at the station): the UTC of that
+    /// event needs the observer term, which needs the station's position, so
+    /// the conversion is iterated (two passes agree to < 1e-15 s; see
+    /// [`Self::observer_term_at`]).
+    pub fn station_state_at_tdb(&self, eph: &Ephemeris, station: &Station, tdb: &Epoch) -> Result<StationState, EarthError> {
+        let mut term_s = 0.0;
+        let mut state = None;
+        for _ in 0..2 {
+            let utc = self.time.convert(*tdb, TimeScale::Utc, term_s).map_err(|source| EarthError::Time { context: "TDB → UTC".into(), source })?;
+            let st = self.station_state(eph, station, &utc)?;
+            term_s = st.observer_term_s;
+            state = Some(st);
+        }
+        Ok(state.expect("loop ran"))
     }
 
     /// UT1 − UTC at a UTC epoch, seconds.

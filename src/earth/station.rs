@@ -6,6 +6,7 @@
 //! geodetic = { lat_deg = 39.9, lon_deg = -3.2, height_m = 812.0 }   # GRS80
 //! velocity_m_per_yr = [-0.012, 0.018, 0.011]
 //! epoch_mjd = 55197.0
+//! delay_s = 1.2e-6          # optional electronic delay on each leg
 //!
 //! [[station]]
 //! code = "GEO"
@@ -45,6 +46,7 @@ struct RawStation {
     geodetic: Option<Geodetic>,
     velocity_m_per_yr: Option<[f64; 3]>,
     epoch_mjd: Option<f64>,
+    delay_s: Option<f64>,
     /// Free text, ignored by the computation.
     #[allow(dead_code)]
     description: Option<String>,
@@ -66,6 +68,10 @@ pub struct Station {
     pub velocity_m_per_yr: [f64; 3],
     /// Reference epoch of the position (MJD; taken as TT, the difference is immaterial).
     pub epoch_mjd: f64,
+    /// Electronic delay of the station on each leg it transmits or receives, s.
+    pub delay_s: f64,
+    /// Local vertical (GRS80 geodetic normal) in the ITRS; zero at the geocentre.
+    pub up_itrs: [f64; 3],
 }
 
 /// GRS80 ellipsoid code for `sofars::coords::gd2gc` / `gc2gd` (SOFA `iauEform`).
@@ -161,7 +167,15 @@ impl StationCatalog {
                     )));
                 }
             }
-            stations.push(Station { code: r.code, itrf_m, velocity_m_per_yr, epoch_mjd });
+            let delay_s = r.delay_s.unwrap_or(0.0);
+            if !(delay_s.is_finite() && (0.0..1.0).contains(&delay_s)) {
+                return Err(err(format!("delay_s = {delay_s} must be in [0, 1) s")));
+            }
+            let up_itrs = match sofars::coords::gc2gd(GRS80, itrf_m) {
+                Ok((elong, phi, _)) if itrf_m != [0.0; 3] => [phi.cos() * elong.cos(), phi.cos() * elong.sin(), phi.sin()],
+                _ => [0.0; 3],
+            };
+            stations.push(Station { code: r.code, itrf_m, velocity_m_per_yr, epoch_mjd, delay_s, up_itrs });
         }
         Ok(Self { path: path.into(), stations })
     }

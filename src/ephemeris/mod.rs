@@ -9,12 +9,13 @@
 
 pub mod naif;
 mod spk;
+pub mod spk_write;
 
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 pub use naif::{body_id, body_name};
-pub use spk::{ChebyshevData, Segment, SegmentData, SpkKernel, StateKm, TdbSeconds};
+pub use spk::{ChebyshevData, DiscreteStates, Segment, SegmentData, SpkKernel, StateKm, TdbSeconds};
 
 use crate::time::{TimeScale, TimeScales};
 
@@ -34,7 +35,7 @@ pub enum EphemerisError {
     #[error("{body} (NAIF {id}) relative to NAIF {center}: epoch {tdb} ({utc}) is outside the loaded coverage {coverage}")]
     OutOfCoverage { body: String, id: i32, center: i32, tdb: String, utc: String, coverage: String },
     /// The covering segment is of a type lapse does not evaluate.
-    #[error("{body} (NAIF {id}): SPK segment type {spk_type} in {path} is not supported (types 2 and 3 are)")]
+    #[error("{body} (NAIF {id}): SPK segment type {spk_type} in {path} is not supported (types 2, 3, 9 and 13 are)")]
     UnsupportedType { body: String, id: i32, spk_type: i32, path: PathBuf },
     /// An epoch in a scale other than TDB.
     #[error("ephemeris epochs must be TDB, got {scale}")]

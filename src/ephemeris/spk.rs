@@ -106,11 +106,26 @@ pub struct ChebyshevData {
     pub records: Vec<f64>,
 }
 
+/// Discrete states of a type 9 (Lagrange) or type 13 (Hermite) segment.
+#[derive(Clone, Debug)]
+pub struct DiscreteStates {
+    /// Epochs, TDB seconds past J2000, strictly increasing.
+    pub epochs_s: Vec<f64>,
+    /// States (x, y, z km; vx, vy, vz km/s), one per epoch.
+    pub states: Vec<[f64; 6]>,
+    /// Number of states in the interpolation window.
+    pub window: usize,
+    /// Type 13 (Hermite with velocities) or type 9 (Lagrange per component).
+    pub hermite: bool,
+}
+
 /// The data of one segment.
 #[derive(Clone, Debug)]
 pub enum SegmentData {
     /// SPK types 2 and 3.
     Chebyshev(ChebyshevData),
+    /// SPK types 9 and 13.
+    Discrete(DiscreteStates),
     /// A type lapse does not evaluate (yet): queries name it in the error.
     Unsupported,
 }
@@ -150,7 +165,11 @@ impl Segment {
     /// NAIF SPK Required Reading, types 2 and 3; SPICE SPKE02 (velocity as the
     /// derivative of the position expansion) and SPKE03.
     pub fn evaluate(&self, t: &TdbSeconds) -> Option<StateKm> {
-        let SegmentData::Chebyshev(c) = &self.data else { return None };
+        let c = match &self.data {
+            SegmentData::Chebyshev(c) => c,
+            SegmentData::Discrete(d) => return Some(d.evaluate(t)),
+            SegmentData::Unsupported => return None,
+        };
         let since_init = t.minus_f64_s(c.init_s);
         let mut idx = (since_init / c.interval_s).floor();
         if idx < 0.0 {
@@ -254,8 +273,10 @@ impl SpkKernel {
             if !s.start_epoch_et_s.is_finite() || !s.end_epoch_et_s.is_finite() || s.end_epoch_et_s < s.start_epoch_et_s {
                 return Err(kernel_err(path, format!("segment {k} (target {}) has a bad coverage", s.target_id)));
             }
+            let seg_err = |m: String| kernel_err(path, format!("segment {k} (target {}, type {}): {m}", s.target_id, s.data_type_i));
             let data = match s.data_type_i {
-                2 | 3 => SegmentData::Chebyshev(parse_chebyshev(&doubles, s.data_type_i == 3).map_err(|m| kernel_err(path, format!("segment {k} (target {}, type {}): {m}", s.target_id, s.data_type_i)))?),
+                2 | 3 => SegmentData::Chebyshev(parse_chebyshev(&doubles, s.data_type_i == 3).map_err(seg_err)?),
+                9 | 13 => SegmentData::Discrete(parse_discrete(&doubles, s.data_type_i == 13).map_err(seg_err)?),
                 _ => SegmentData::Unsupported,
             };
             segments.push(Segment {
@@ -308,9 +329,149 @@ fn parse_chebyshev(d: &[f64], with_velocity: bool) -> Result<ChebyshevData, Stri
     Ok(ChebyshevData { init_s, interval_s, record_len, n_records, n_coeffs, with_velocity, records })
 }
 
+/// Parses a type 9 or 13 segment: N states (6 doubles each), N epochs, the
+/// epoch directory ((N−1)/100 entries), then (type 9) the polynomial degree
+/// or (type 13) the window size minus one, and N.
+///
+/// # References
+/// NAIF SPK Required Reading, "Type 9: Lagrange Interpolation — Unequal Time
+/// Steps" and "Type 13: Hermite Interpolation — Unequal Time Steps".
+fn parse_discrete(d: &[f64], hermite: bool) -> Result<DiscreteStates, String> {
+    if d.len() < 2 + 7 {
+        return Err(format!("only {} doubles", d.len()));
+    }
+    let n_f = d[d.len() - 1];
+    let w_f = d[d.len() - 2];
+    if !(n_f.is_finite() && n_f >= 2.0 && n_f.fract() == 0.0 && w_f.is_finite() && w_f >= 1.0 && w_f.fract() == 0.0) {
+        return Err(format!("bad trailer: {w_f}, {n_f}"));
+    }
+    let n = n_f as usize;
+    // Type 9 stores the degree (window = degree + 1); type 13 the window − 1.
+    let window = w_f as usize + 1;
+    let dir = (n - 1) / 100;
+    if n.checked_mul(7).map(|x| x + dir + 2) != Some(d.len()) {
+        return Err(format!("{n} states do not fill the segment's {} doubles", d.len()));
+    }
+    if window > n || window > 64 {
+        return Err(format!("window of {window} states with {n} states"));
+    }
+    let states: Vec<[f64; 6]> = (0..n).map(|i| std::array::from_fn(|k| d[6 * i + k])).collect();
+    let epochs_s = d[6 * n..7 * n].to_vec();
+    if epochs_s.windows(2).any(|w| !(w[1] > w[0])) || states.iter().flatten().chain(&epochs_s).any(|x| !x.is_finite()) {
+        return Err("epochs not increasing or values not finite".into());
+    }
+    Ok(DiscreteStates { epochs_s, states, window, hermite })
+}
+
+impl DiscreteStates {
+    /// First index of the interpolation window at `t`, as SPICE selects it
+    /// (SPKR09/SPKR13): for an even window the states around the last epoch
+    /// ≤ t, half on each side; for an odd window centred on the nearest
+    /// epoch; shifted to stay inside the segment.
+    fn window_start(&self, t: &TdbSeconds) -> usize {
+        let n = self.epochs_s.len();
+        let w = self.window;
+        let low = self.epochs_s.partition_point(|e| t.minus_f64_s(*e) >= 0.0).saturating_sub(1);
+        let first = if w % 2 == 0 {
+            (low + 1).saturating_sub(w / 2)
+        } else {
+            let near = if low + 1 < n && t.minus_f64_s(self.epochs_s[low]).abs() > t.minus_f64_s(self.epochs_s[low + 1]).abs() { low + 1 } else { low };
+            near.saturating_sub((w - 1) / 2)
+        };
+        first.min(n - w)
+    }
+
+    /// Interpolated state at `t`.
+    ///
+    /// Type 13: each position component by the Hermite polynomial through the
+    /// window's positions and velocities, velocity as its derivative (SPICE
+    /// SPKE13/HRMINT). Type 9: each of the six components by the Lagrange
+    /// polynomial through the window (SPICE SPKE09/LGRINT).
+    ///
+    /// # Accuracy
+    /// Reproduces the states at the nodes exactly; between nodes it is the
+    /// interpolating polynomial, checked against spiceypy on the same file
+    /// (`tests/tracking_reference.rs`).
+    pub fn evaluate(&self, t: &TdbSeconds) -> StateKm {
+        let f = self.window_start(t);
+        let w = self.window;
+        // Abscissae relative to t (two-part subtraction keeps precision).
+        let x: Vec<f64> = (f..f + w).map(|i| -t.minus_f64_s(self.epochs_s[i])).collect();
+        let mut s = StateKm::default();
+        for axis in 0..3 {
+            if self.hermite {
+                let p: Vec<f64> = (f..f + w).map(|i| self.states[i][axis]).collect();
+                let v: Vec<f64> = (f..f + w).map(|i| self.states[i][axis + 3]).collect();
+                let (val, der) = hermite_at_zero(&x, &p, &v);
+                s.position_km[axis] = val;
+                s.velocity_km_s[axis] = der;
+            } else {
+                let p: Vec<f64> = (f..f + w).map(|i| self.states[i][axis]).collect();
+                let v: Vec<f64> = (f..f + w).map(|i| self.states[i][axis + 3]).collect();
+                s.position_km[axis] = lagrange_at_zero(&x, &p);
+                s.velocity_km_s[axis] = lagrange_at_zero(&x, &v);
+            }
+        }
+        s
+    }
+}
+
+/// Lagrange interpolation at 0 through (x_i, y_i) (Neville's scheme).
+fn lagrange_at_zero(x: &[f64], y: &[f64]) -> f64 {
+    let mut p = y.to_vec();
+    let n = x.len();
+    for m in 1..n {
+        for i in 0..n - m {
+            p[i] = (x[i + m] * p[i] - x[i] * p[i + 1]) / (x[i + m] - x[i]);
+        }
+    }
+    p[0]
+}
+
+/// Hermite interpolation at 0 through values y_i and derivatives dy_i at
+/// x_i: value and derivative (divided differences on doubled nodes).
+fn hermite_at_zero(x: &[f64], y: &[f64], dy: &[f64]) -> (f64, f64) {
+    let n = 2 * x.len();
+    let z: Vec<f64> = (0..n).map(|k| x[k / 2]).collect();
+    let mut q: Vec<f64> = (0..n).map(|k| y[k / 2]).collect();
+    // Newton divided-difference coefficients, column by column in place.
+    let mut coef = vec![0.0; n];
+    coef[0] = q[0];
+    // First column: derivatives on repeated nodes.
+    let mut col: Vec<f64> = (0..n - 1).map(|k| if k % 2 == 0 { dy[k / 2] } else { (q[k + 1] - q[k]) / (z[k + 1] - z[k]) }).collect();
+    coef[1] = col[0];
+    for m in 2..n {
+        let next: Vec<f64> = (0..n - m).map(|k| (col[k + 1] - col[k]) / (z[k + m] - z[k])).collect();
+        coef[m] = next[0];
+        col = next;
+    }
+    q.clear();
+    // Evaluate the Newton form and its derivative at 0 (Horner).
+    let (mut p, mut dp) = (coef[n - 1], 0.0);
+    for k in (0..n - 1).rev() {
+        dp = dp * (0.0 - z[k]) + p;
+        p = p * (0.0 - z[k]) + coef[k];
+    }
+    (p, dp)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn hermite_and_lagrange_reproduce_polynomials() {
+        // Cubic f(t) = 1 − 2t + 0.5t² + 0.1t³, f' = −2 + t + 0.3t²; evaluate at t0 via shifted abscissae.
+        let f = |t: f64| 1.0 - 2.0 * t + 0.5 * t * t + 0.1 * t * t * t;
+        let df = |t: f64| -2.0 + t + 0.3 * t * t;
+        let t0 = 0.7;
+        let nodes = [0.0, 1.0, 2.5];
+        let x: Vec<f64> = nodes.iter().map(|n| n - t0).collect();
+        let (v, d) = hermite_at_zero(&x, &nodes.map(f), &nodes.map(df));
+        assert!((v - f(t0)).abs() < 1e-13 && (d - df(t0)).abs() < 1e-13, "{v} {d}");
+        let x4 = [0.0 - t0, 1.0 - t0, 2.5 - t0, 4.0 - t0];
+        assert!((lagrange_at_zero(&x4, &[0.0, 1.0, 2.5, 4.0].map(f)) - f(t0)).abs() < 1e-13);
+    }
 
     #[test]
     fn two_part_time_arithmetic() {

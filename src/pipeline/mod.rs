@@ -6,6 +6,7 @@
 
 pub mod pulsar;
 mod timescales;
+pub mod tracking;
 
 use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
@@ -37,7 +38,7 @@ pub enum PipelineError {
 }
 
 /// The kinds of pipeline lapse runs.
-pub const KINDS: &[&str] = &["timescales", "pulsar"];
+pub const KINDS: &[&str] = &["timescales", "pulsar", "tracking"];
 
 /// A pipeline file, read and hashed, not yet interpreted.
 #[derive(Clone, Debug)]
@@ -132,6 +133,7 @@ pub fn run(path: &Path, opts: &RunOptions) -> Result<RunSummary, PipelineError> 
     match file.kind.as_str() {
         "timescales" => run_timescales(&file, opts),
         "pulsar" => run_pulsar(&file, opts),
+        "tracking" => tracking::run_tracking(&file, opts),
         other => Err(PipelineError::UnknownKind { path: path.into(), kind: other.into(), known: KINDS.join(", ") }),
     }
 }

@@ -33,7 +33,7 @@ fn utc() -> String {
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub(crate) struct EphemerisCfg {
+pub struct EphemerisCfg {
     pub kernels: Vec<PathBuf>,
     /// Constants file (GM values); default: the built-in DE421 constants.
     pub constants: Option<PathBuf>,
@@ -41,7 +41,7 @@ pub(crate) struct EphemerisCfg {
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub(crate) struct EarthCfg {
+pub struct EarthCfg {
     pub eop: PathBuf,
     pub leap_seconds: Option<PathBuf>,
     /// Apply the celestial pole offsets dX, dY (default true).
@@ -55,7 +55,7 @@ fn yes() -> bool {
 
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-pub(crate) struct StationsCfg {
+pub struct StationsCfg {
     pub catalog: PathBuf,
 }
 

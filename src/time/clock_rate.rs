@@ -37,6 +37,16 @@ pub fn proper_time_rate_offset(potential_m2_s2: f64, speed_m_s: f64) -> f64 {
     -(potential_m2_s2 + 0.5 * speed_m_s * speed_m_s) / (C_M_S * C_M_S)
 }
 
+/// Periodic relativistic clock term of an eccentric orbit, −2 r·v/c² (s),
+/// for a position (m) and velocity (m/s) relative to the central body.
+///
+/// # References
+/// GPS Interface Specification IS-GPS-200, sec. 20.3.3.3.3.1 (relativistic
+/// correction Δt_r = F e √A sin E, which equals −2 r·v/c² for a Kepler orbit).
+pub fn eccentricity_clock_term_s(r_m: &[f64; 3], v_m_s: &[f64; 3]) -> f64 {
+    -2.0 * (r_m[0] * v_m_s[0] + r_m[1] * v_m_s[1] + r_m[2] * v_m_s[2]) / (C_M_S * C_M_S)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -1,0 +1,368 @@
+//! `kind = "tracking"`: station range and Doppler measurements of a
+//! spacecraft → light-time solutions, computed observables and residuals.
+//! See the README for the table and column contract.
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+use polars::prelude::*;
+use serde::Deserialize;
+
+use super::pulsar::{EarthCfg, EphemerisCfg, StationsCfg, load_time};
+use super::{PipelineError, PipelineFile, Provenance, RunOptions, RunSummary, assemble, check_unique_ids, rejects_path};
+use crate::constants::Constants;
+use crate::delays::shapiro_bodies;
+use crate::earth::{EarthModel, EopTable, StationCatalog};
+use crate::ephemeris::{Ephemeris, body_id};
+use crate::io::{Columns, read_parquet, write_parquet};
+use crate::pulsar::residual_summary;
+use crate::tracking::observables::{Kind, Measurement, TrackingContext, TrackingResult};
+use crate::tracking::propagate::PointMassField;
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct InputCfg {
+    path: PathBuf,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct TargetCfg {
+    /// NAIF id (integer) or name.
+    body: toml::Value,
+    #[serde(default)]
+    transponder_delay_s: f64,
+    /// [numerator, denominator]; default by uplink band.
+    turnaround_ratio: Option<[f64; 2]>,
+}
+
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct CorrectionsCfg {
+    shapiro_bodies: Option<Vec<String>>,
+    ppn_gamma: Option<f64>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct OutputCfg {
+    path: PathBuf,
+}
+
+/// The configuration of a `tracking` pipeline.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TrackingPipeline {
+    #[allow(dead_code)]
+    kind: String,
+    input: InputCfg,
+    ephemeris: EphemerisCfg,
+    earth: EarthCfg,
+    stations: StationsCfg,
+    target: TargetCfg,
+    #[serde(default)]
+    corrections: CorrectionsCfg,
+    output: OutputCfg,
+}
+
+/// A loaded tracking pipeline.
+#[derive(Debug)]
+pub struct LoadedTracking {
+    pub ctx: TrackingContext,
+    pub input_path: PathBuf,
+    pub output_path: PathBuf,
+    pub inputs: Vec<(String, PathBuf, String)>,
+    pub constants: Constants,
+}
+
+/// Loads the shared inputs of a tracking pipeline once.
+pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedTracking, PipelineError> {
+    let cfg: TrackingPipeline = file.parse()?;
+    let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
+    let mut inputs = Vec::new();
+    let (time, leap_path) = load_time(file, cfg.earth.leap_seconds.as_deref())?;
+    if let Some(p) = leap_path {
+        inputs.push(("leap_seconds".to_string(), p, super::leap_coverage(time.leap_seconds())));
+    }
+    let kernels: Vec<PathBuf> = cfg.ephemeris.kernels.iter().map(|k| file.resolve(k)).collect();
+    if kernels.is_empty() {
+        return Err(invalid("[ephemeris] kernels is empty".into()));
+    }
+    let ephemeris = Ephemeris::load(&kernels).map_err(|e| invalid(format!("[ephemeris] {e}")))?;
+    for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
+        inputs.push(("kernel".into(), k.clone(), super::kernel_coverage(loaded)));
+    }
+    let constants = match &cfg.ephemeris.constants {
+        Some(p) => {
+            let p = file.resolve(p);
+            inputs.push(("constants".into(), p.clone(), String::new()));
+            Constants::from_file(&p).map_err(|e| invalid(e.to_string()))?
+        }
+        None => Constants::builtin(),
+    };
+    let eop_path = file.resolve(&cfg.earth.eop);
+    let eop = EopTable::from_file(&eop_path).map_err(|e| invalid(format!("[earth] {e}")))?;
+    inputs.push(("eop".into(), eop_path, super::eop_coverage(&eop)));
+    let mut earth = EarthModel::new(time, eop);
+    earth.pole_offsets = cfg.earth.pole_offsets;
+    let stations_path = file.resolve(&cfg.stations.catalog);
+    let stations = StationCatalog::from_file(&stations_path).map_err(|e| invalid(format!("[stations] {e}")))?;
+    inputs.push(("stations".into(), stations_path, format!("{} stations", stations.stations().len())));
+    let target = match &cfg.target.body {
+        toml::Value::Integer(i) => i32::try_from(*i).map_err(|_| invalid(format!("[target] body {i} is not a NAIF id")))?,
+        toml::Value::String(s) => body_id(s, &[]).ok_or_else(|| invalid(format!("[target] body '{s}' is not a known name or NAIF id")))?,
+        other => return Err(invalid(format!("[target] body = {other}: give a NAIF id or name"))),
+    };
+    if ephemeris.kernels().iter().all(|k| k.segments.iter().all(|s| s.target != target)) {
+        return Err(invalid(format!("[target] body {target}: no loaded kernel holds it")));
+    }
+    let names = cfg.corrections.shapiro_bodies.clone().unwrap_or_else(|| vec!["sun".to_string()]);
+    let shapiro = shapiro_bodies(&names, &constants.ephemeris).map_err(|e| invalid(format!("[corrections] {e}")))?;
+    let ppn_gamma = cfg.corrections.ppn_gamma.unwrap_or(1.0);
+    if !ppn_gamma.is_finite() || !cfg.target.transponder_delay_s.is_finite() || cfg.target.transponder_delay_s < 0.0 {
+        return Err(invalid("[corrections] ppn_gamma and [target] transponder_delay_s must be finite (delay ≥ 0)".into()));
+    }
+    let turnaround = match cfg.target.turnaround_ratio {
+        Some([a, b]) if a.is_finite() && b.is_finite() && a > 0.0 && b > 0.0 => Some((a, b)),
+        Some(r) => return Err(invalid(format!("[target] turnaround_ratio {r:?} must be two positive numbers"))),
+        None => None,
+    };
+    let field = PointMassField::solar_system(&constants.ephemeris).map_err(invalid)?;
+    let ctx = TrackingContext {
+        ephemeris,
+        earth,
+        stations,
+        target,
+        shapiro,
+        ppn_gamma,
+        transponder_delay_s: cfg.target.transponder_delay_s,
+        turnaround,
+        field,
+        chunk_rows: super::DEFAULT_CHUNK_ROWS,
+    };
+    Ok(LoadedTracking {
+        ctx,
+        input_path: file.resolve(&cfg.input.path),
+        output_path: output.map(Path::to_path_buf).unwrap_or_else(|| file.resolve(&cfg.output.path)),
+        inputs,
+        constants,
+    })
+}
+
+/// The input columns of a tracking batch.
+pub struct TrackingInput {
+    pub obs_id: Vec<Option<String>>,
+    pub kind: Vec<Option<String>>,
+    pub rx_station: Vec<Option<String>>,
+    pub tx_station: Vec<Option<String>>,
+    pub day: Vec<Option<i64>>,
+    pub frac: Vec<Option<f64>>,
+    pub count_s: Vec<Option<f64>>,
+    pub uplink_hz: Vec<Option<f64>>,
+    pub value: Vec<Option<f64>>,
+    pub sigma: Vec<Option<f64>>,
+}
+
+/// Reads and type-checks the input columns.
+pub fn read_tracking_input(df: &DataFrame, path: &Path) -> Result<TrackingInput, PipelineError> {
+    let c = Columns { df, path };
+    Ok(TrackingInput {
+        obs_id: c.str("obs_id")?,
+        kind: c.str("kind")?,
+        rx_station: c.str("rx_station")?,
+        tx_station: c.str("tx_station")?,
+        day: c.i64("rx_mjd_day")?,
+        frac: c.f64("rx_mjd_frac")?,
+        count_s: c.f64("count_s")?,
+        uplink_hz: c.f64("uplink_hz")?,
+        value: c.f64("value")?,
+        sigma: c.f64("sigma")?,
+    })
+}
+
+/// Computes every row (Err = reject reason), in input order.
+pub fn compute_tracking(lt: &mut LoadedTracking, input: &TrackingInput, check_values: bool) -> Vec<Result<TrackingResult, String>> {
+    let days: Vec<i64> = input.day.iter().flatten().copied().filter(|d| (40_000..100_000).contains(d)).collect();
+    if let (Some(lo), Some(hi)) = (days.iter().min(), days.iter().max()) {
+        lt.ctx.earth.set_cip_grid(*lo as f64, *hi as f64 + 1.0);
+    }
+    let n = input.obs_id.len();
+    let mut out: Vec<Result<TrackingResult, String>> = Vec::with_capacity(n);
+    let mut rows: Vec<Measurement> = Vec::with_capacity(n);
+    let mut index = Vec::with_capacity(n);
+    for i in 0..n {
+        let pre = (|| -> Result<Measurement, String> {
+            let kind: Kind = input.kind[i].as_deref().ok_or("missing value: kind is null")?.parse()?;
+            let rx = input.rx_station[i].as_deref().ok_or("missing value: rx_station is null")?;
+            let day = input.day[i].ok_or("missing value: rx_mjd_day is null")?;
+            let frac = input.frac[i].ok_or("missing value: rx_mjd_frac is null")?;
+            let count_s = input.count_s[i].unwrap_or(f64::NAN);
+            let uplink_hz = input.uplink_hz[i].unwrap_or(f64::NAN);
+            if check_values {
+                let v = input.value[i].ok_or("missing value: value is null")?;
+                let s = input.sigma[i].ok_or("missing value: sigma is null")?;
+                if !v.is_finite() {
+                    return Err(format!("value invalid: {v:?} is not finite"));
+                }
+                if !(s.is_finite() && s > 0.0) {
+                    return Err(format!("sigma invalid: {s:?} (must be positive)"));
+                }
+                if matches!(kind, Kind::LightTime2Way | Kind::LightTime1Way) && v <= 0.0 {
+                    return Err(format!("value invalid: light time {v} s must be positive"));
+                }
+            }
+            Ok(Measurement { kind, rx_station: rx, tx_station: input.tx_station[i].as_deref(), rx_mjd_day: day, rx_mjd_frac: frac, count_s, uplink_hz })
+        })();
+        match pre {
+            Ok(m) => {
+                rows.push(m);
+                index.push(i);
+                out.push(Err(String::new()));
+            }
+            Err(e) => out.push(Err(e)),
+        }
+    }
+    for (k, r) in index.into_iter().zip(lt.ctx.compute_batch(&rows)) {
+        out[k] = r;
+    }
+    out
+}
+
+/// Runs a tracking pipeline.
+pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
+    let mut prov = Provenance::start(file);
+    let mut lt = load_tracking(file, opts.output.as_deref())?;
+    lt.ctx.chunk_rows = opts.chunk_rows;
+    let df = read_parquet(&lt.input_path)?;
+    let input = read_tracking_input(&df, &lt.input_path)?;
+    check_unique_ids(&input.obs_id, &lt.input_path)?;
+    let results = compute_tracking(&mut lt, &input, true);
+    let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
+    let good: Vec<(usize, &TrackingResult)> = results.iter().enumerate().filter_map(|(i, r)| r.as_ref().ok().map(|g| (i, g))).collect();
+    let residual: Vec<f64> = good.iter().map(|(i, g)| input.value[*i].unwrap_or(f64::NAN) - g.computed).collect();
+    let ts = &lt.ctx.earth.time;
+    let parts = |e: &crate::time::Epoch| ts.mjd_parts(e).unwrap_or((e.mjd_day(), f64::NAN));
+    let bounce: Vec<(i64, f64)> = good.iter().map(|(_, g)| parts(&g.bounce_tdb)).collect();
+    let tx: Vec<Option<(i64, f64)>> = good.iter().map(|(_, g)| g.tx_utc.as_ref().map(parts)).collect();
+    let fcol = |n: &str, v: Vec<f64>| Column::new(n.into(), v);
+    let ocol = |n: &str, v: Vec<Option<f64>>| Column::new(n.into(), v);
+    let computed = vec![
+        fcol("computed", good.iter().map(|(_, g)| g.computed).collect()),
+        fcol("residual", residual.clone()),
+        fcol("light_time_down_s", good.iter().map(|(_, g)| g.light_time_down_s).collect()),
+        ocol("light_time_up_s", good.iter().map(|(_, g)| g.light_time_up_s).collect()),
+        fcol("shapiro_down_s", good.iter().map(|(_, g)| g.shapiro_down_s).collect()),
+        ocol("shapiro_up_s", good.iter().map(|(_, g)| g.shapiro_up_s).collect()),
+        fcol("clock_rx_s", good.iter().map(|(_, g)| g.clock_rx_s).collect()),
+        ocol("clock_tx_s", good.iter().map(|(_, g)| g.clock_tx_s).collect()),
+        Column::new("bounce_tdb_mjd_day".into(), bounce.iter().map(|b| b.0).collect::<Vec<i64>>()),
+        fcol("bounce_tdb_mjd_frac", bounce.iter().map(|b| b.1).collect()),
+        Column::new("tx_mjd_day".into(), tx.iter().map(|t| t.map(|x| x.0)).collect::<Vec<Option<i64>>>()),
+        ocol("tx_mjd_frac", tx.iter().map(|t| t.map(|x| x.1)).collect()),
+        fcol("elevation_rx_deg", good.iter().map(|(_, g)| g.elevation_rx_deg).collect()),
+    ];
+    let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
+    let (mut out, mut rejects) = assemble(&df, &lt.input_path, &ok, &reasons, computed, &[])?;
+    let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), &lt.output_path, &reasons);
+
+    // Per kind and station: count, weighted RMS, χ².
+    let mut groups: BTreeMap<(String, String), (Vec<f64>, Vec<f64>)> = BTreeMap::new();
+    for ((i, _), r) in good.iter().zip(&residual) {
+        let key = (input.kind[*i].clone().unwrap_or_default(), input.rx_station[*i].clone().unwrap_or_default());
+        let e = groups.entry(key).or_default();
+        e.0.push(*r);
+        e.1.push(input.sigma[*i].unwrap_or(1.0));
+    }
+    for ((kind, st), (r, s)) in &groups {
+        let x = residual_summary(r, s, false);
+        let unit = if kind.starts_with("doppler") { "Hz" } else { "s" };
+        summary.notes.push(format!("  {kind:<16} {st:<12} {:>7} rows  weighted RMS {:>11.4e} {unit}  χ²/N {:>8.3}", x.count, x.weighted_rms_s, if x.count > 0 { x.chi2 / x.count as f64 } else { 0.0 }));
+    }
+
+    let (lo, hi) = input.day.iter().flatten().fold((i64::MAX, i64::MIN), |(a, b), d| (a.min(*d), b.max(*d)));
+    prov.add_input("observations", &lt.input_path, &if lo <= hi { format!("reception MJD {lo} … {hi}") } else { String::new() })?;
+    for (role, p, cov) in &lt.inputs {
+        prov.add_input(role, p, cov)?;
+    }
+    prov.set("constants.ephemeris", &lt.constants.ephemeris.name);
+    for b in &lt.ctx.shapiro {
+        prov.set(&format!("constants.gm_m3_s2.{}", b.name), &format!("{:e}", b.gm_m3_s2));
+    }
+    prov.set("constants.ppn_gamma", &format!("{}", lt.ctx.ppn_gamma));
+    prov.set("constants.c_m_s", "299792458");
+    prov.set("target.naif_id", &lt.ctx.target.to_string());
+    prov.set("target.transponder_delay_s", &format!("{:e}", lt.ctx.transponder_delay_s));
+    prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
+    let metadata = prov.finish();
+    write_parquet(&mut out, &lt.output_path, &metadata)?;
+    write_parquet(&mut rejects, &rejects_path(&lt.output_path), &metadata)?;
+    Ok(summary)
+}
+
+/// Writes synthetic tracking measurements: the computed observable of every
+/// planned row plus optional Gaussian noise of its `sigma` (plan CSV header
+/// `kind,rx_station,tx_station,rx_mjd,count_s,uplink_hz,sigma`).
+pub fn synthesize_tracking(file: &PipelineFile, plan: &Path, out: &Path, noise: bool, seed: u64) -> Result<usize, PipelineError> {
+    let text = std::fs::read_to_string(plan).map_err(|source| PipelineError::Read { path: plan.into(), source })?;
+    let bad = |line: usize, m: String| PipelineError::Invalid { path: plan.into(), message: format!("line {line}: {m}") };
+    let (mut kind, mut rx, mut tx, mut day, mut frac, mut count, mut up, mut sig) = (vec![], vec![], vec![], vec![], vec![], vec![], vec![], vec![]);
+    let mut header = false;
+    for (i, raw) in text.lines().enumerate() {
+        let l = raw.trim();
+        if l.is_empty() || l.starts_with('#') {
+            continue;
+        }
+        let f: Vec<&str> = l.split(',').map(str::trim).collect();
+        if !header {
+            if f != ["kind", "rx_station", "tx_station", "rx_mjd", "count_s", "uplink_hz", "sigma"] {
+                return Err(bad(i + 1, "expected the header 'kind,rx_station,tx_station,rx_mjd,count_s,uplink_hz,sigma'".into()));
+            }
+            header = true;
+            continue;
+        }
+        if f.len() != 7 {
+            return Err(bad(i + 1, format!("expected 7 fields, found {}", f.len())));
+        }
+        let num = |s: &str, w: &str| s.parse::<f64>().map_err(|_| bad(i + 1, format!("{w} '{s}' is not a number")));
+        let mjd = num(f[3], "rx_mjd")?;
+        kind.push(Some(f[0].to_string()));
+        rx.push(Some(f[1].to_string()));
+        tx.push(if f[2].is_empty() { None } else { Some(f[2].to_string()) });
+        day.push(Some(mjd.floor() as i64));
+        frac.push(Some(mjd - mjd.floor()));
+        count.push(Some(num(f[4], "count_s")?));
+        up.push(Some(num(f[5], "uplink_hz")?));
+        sig.push(Some(num(f[6], "sigma")?));
+    }
+    let n = kind.len();
+    let ids: Vec<Option<String>> = (0..n).map(|i| Some(format!("{}-{i:05}", kind[i].as_deref().unwrap_or("")))).collect();
+    let input = TrackingInput { obs_id: ids.clone(), kind, rx_station: rx, tx_station: tx, day, frac, count_s: count, uplink_hz: up, value: vec![None; n], sigma: sig };
+    let mut lt = load_tracking(file, None)?;
+    let res = compute_tracking(&mut lt, &input, false);
+    let mut values = Vec::with_capacity(n);
+    for (i, r) in res.iter().enumerate() {
+        let r = r.as_ref().map_err(|e| bad(0, format!("plan row {}: {e}", i + 1)))?;
+        let s = input.sigma[i].unwrap_or(0.0);
+        values.push(r.computed + if noise { s * super::pulsar::gaussian(seed, i as u64) } else { 0.0 });
+    }
+    let mut df = DataFrame::new_infer_height(vec![
+        Column::new("obs_id".into(), ids),
+        Column::new("kind".into(), input.kind),
+        Column::new("rx_station".into(), input.rx_station),
+        Column::new("tx_station".into(), input.tx_station),
+        Column::new("rx_mjd_day".into(), input.day),
+        Column::new("rx_mjd_frac".into(), input.frac),
+        Column::new("count_s".into(), input.count_s),
+        Column::new("uplink_hz".into(), input.uplink_hz),
+        Column::new("value".into(), values),
+        Column::new("sigma".into(), input.sigma),
+    ])
+    .map_err(|e| PipelineError::Invalid { path: out.into(), message: e.to_string() })?;
+    let mut prov = Provenance::start(file);
+    prov.set("synth.plan", &plan.display().to_string());
+    prov.set("synth.noise", if noise { "gaussian, each row's sigma" } else { "none" });
+    prov.set("synth.seed", &seed.to_string());
+    prov.set_rows(n, n, 0);
+    write_parquet(&mut df, out, &prov.finish())?;
+    Ok(n)
+}

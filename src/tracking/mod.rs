@@ -1,0 +1,4 @@
+//! Deep-space tracking: trajectories, light-time solutions and observables.
+
+pub mod observables;
+pub mod propagate;

@@ -1,0 +1,288 @@
+//! Computed observables of deep-space tracking: round-trip and one-way light
+//! time, two-, three- and one-way Doppler.
+//!
+//! Conventions (tested):
+//! - Round-trip light time in station time: ρ = (t₃ − t₁)_TDB − (TDB − TT)_rx(t₃)
+//!   + (TDB − TT)_tx(t₁) + station delays (receiver and transmitter, one
+//!   each) + transponder delay. One-way: ρ = (t₃ − t₂)_TDB − (TDB − TT)_rx(t₃)
+//!   + receiver delay.
+//! - Two-/three-way Doppler over a count interval T_c ending at the tagged
+//!   reception: F = M₂ · f_up · (ρ(end) − ρ(start)) / T_c, positive when the
+//!   round trip lengthens (spacecraft receding); the received frequency is
+//!   M₂ f_up − F to first order. M₂ = 240/221 (S band uplink, 2.0–2.3 GHz),
+//!   880/749 (X band, 7.0–7.3 GHz) — common practice — or set in the pipeline.
+//! - One-way Doppler: F = f_osc − f_R, f_R = f_osc · Δτ_sc / T_c with Δτ_sc the
+//!   spacecraft proper time elapsed over the transmission interval; positive
+//!   when receding. The `uplink_hz` column carries f_osc for one-way rows.
+//!
+//! # References
+//! Moyer 2000, JPL DESCANSO Monograph 2: ch. 11 (round-trip light time,
+//! eq. 11-7), ch. 13 (two- and three-way Doppler, eq. 13-52 in the
+//! difference-of-range form); IERS Conventions 2010, eq. 10.1–10.2
+//! (proper time of the spacecraft clock).
+
+use std::str::FromStr;
+
+use nalgebra::Vector3;
+
+use crate::delays::ShapiroBody;
+use crate::earth::{EarthModel, Station, StationCatalog};
+use crate::ephemeris::{Ephemeris, TdbSeconds};
+use crate::light_time::{Leg, ShapiroSet, solve_backward};
+use crate::time::femto::{FS_PER_S, ratio_to_f64, seconds_to_fs};
+use crate::time::relativistic::L_B;
+use crate::time::{Epoch, TimeScale};
+use crate::tracking::propagate::PointMassField;
+
+/// Kinds of measurement.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Kind {
+    LightTime2Way,
+    LightTime1Way,
+    Doppler2Way,
+    Doppler3Way,
+    Doppler1Way,
+}
+
+impl FromStr for Kind {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, String> {
+        Ok(match s {
+            "light_time_2way" => Kind::LightTime2Way,
+            "light_time_1way" => Kind::LightTime1Way,
+            "doppler_2way" => Kind::Doppler2Way,
+            "doppler_3way" => Kind::Doppler3Way,
+            "doppler_1way" => Kind::Doppler1Way,
+            other => return Err(format!("unknown kind '{other}' (light_time_2way, light_time_1way, doppler_2way, doppler_3way, doppler_1way)")),
+        })
+    }
+}
+
+/// Everything a tracking batch shares: loaded once.
+#[derive(Debug)]
+pub struct TrackingContext {
+    pub ephemeris: Ephemeris,
+    pub earth: EarthModel,
+    pub stations: StationCatalog,
+    /// NAIF id of the spacecraft.
+    pub target: i32,
+    pub shapiro: Vec<ShapiroBody>,
+    pub ppn_gamma: f64,
+    /// Transponder delay, s (two- and three-way).
+    pub transponder_delay_s: f64,
+    /// Turnaround ratio override (numerator, denominator).
+    pub turnaround: Option<(f64, f64)>,
+    /// Gravity field for the spacecraft clock's proper-time rate.
+    pub field: PointMassField,
+    /// Rows per parallel work unit.
+    pub chunk_rows: usize,
+}
+
+/// One measurement.
+#[derive(Clone, Copy, Debug)]
+pub struct Measurement<'a> {
+    pub kind: Kind,
+    pub rx_station: &'a str,
+    pub tx_station: Option<&'a str>,
+    /// Reception (end of the count interval for Doppler), UTC.
+    pub rx_mjd_day: i64,
+    pub rx_mjd_frac: f64,
+    pub count_s: f64,
+    pub uplink_hz: f64,
+}
+
+/// What is computed for one measurement (at the tagged reception).
+#[derive(Clone, Copy, Debug)]
+pub struct TrackingResult {
+    pub computed: f64,
+    pub light_time_down_s: f64,
+    pub light_time_up_s: Option<f64>,
+    pub shapiro_down_s: f64,
+    pub shapiro_up_s: Option<f64>,
+    /// TDB − TT at the receiving station at reception, s.
+    pub clock_rx_s: f64,
+    /// TDB − TT at the transmitting station at transmission, s.
+    pub clock_tx_s: Option<f64>,
+    /// Spacecraft event (bounce or one-way transmission), TDB.
+    pub bounce_tdb: Epoch,
+    /// Transmission at the station, UTC.
+    pub tx_utc: Option<Epoch>,
+    /// Elevation of the spacecraft at the receiver (geometric, deg; NaN at the geocentre).
+    pub elevation_rx_deg: f64,
+}
+
+/// One light-time solution of a (possibly two-leg) path.
+struct Path {
+    /// ρ in femtoseconds of station time (exact differences for Doppler).
+    rho_fs: i128,
+    down: Leg,
+    up: Option<Leg>,
+    clock_rx_s: f64,
+    clock_tx_s: Option<f64>,
+    tx_utc: Option<Epoch>,
+    elevation_rx_deg: f64,
+}
+
+fn s_to_fs(x: f64) -> Result<i128, String> {
+    seconds_to_fs(x).ok_or_else(|| format!("non-finite value {x}"))
+}
+
+/// Turnaround ratio M₂ of a coherent transponder for an uplink frequency:
+/// 240/221 in S band, 880/749 in X band (common practice).
+pub fn turnaround_ratio(uplink_hz: f64) -> Option<(f64, f64)> {
+    if (2.0e9..2.3e9).contains(&uplink_hz) {
+        Some((240.0, 221.0))
+    } else if (7.0e9..7.3e9).contains(&uplink_hz) {
+        Some((880.0, 749.0))
+    } else {
+        None
+    }
+}
+
+impl TrackingContext {
+    fn station(&self, code: &str) -> Result<&Station, String> {
+        self.stations.get(code).map_err(|e| format!("unknown station: {e}"))
+    }
+
+    fn spacecraft(&self, t: &Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String> {
+        let s = self.ephemeris.state_ssb(self.target, &TdbSeconds::from_epoch(t).map_err(|e| e.to_string())?).map_err(|e| format!("spacecraft ephemeris: {e}"))?;
+        Ok((Vector3::from(s.position_km) * 1e3, Vector3::from(s.velocity_km_s) * 1e3))
+    }
+
+    /// The light path for a reception at `rx` at UTC `rx_utc`, transmitted by
+    /// `tx` (two-/three-way) or by the spacecraft (one-way).
+    fn path(&self, rx: &Station, tx: Option<&Station>, rx_utc: &Epoch) -> Result<Path, String> {
+        let st_rx = self.earth.station_state(&self.ephemeris, rx, rx_utc).map_err(|e| format!("geometry unavailable: {e}"))?;
+        let t3 = st_rx.tdb;
+        let x_rx = st_rx.bcrs_position_m;
+        let t3s = TdbSeconds::from_epoch(&t3).map_err(|e| e.to_string())?;
+        let sh_down = ShapiroSet::for_receiver(&self.ephemeris, &self.shapiro, self.ppn_gamma, &t3s, &x_rx)?;
+        let down = solve_backward(&t3, &x_rx, &sh_down, |t| self.spacecraft(t)).map_err(|e| format!("down leg: {e}"))?;
+        let clock_rx_s = ratio_to_f64(t3.label_fs() - st_rx.tt.label_fs(), FS_PER_S);
+        let los = down.x_tx_m - x_rx;
+        let up_vec = st_rx.up_gcrs;
+        let elevation_rx_deg = if up_vec.norm() > 0.0 { (up_vec.dot(&los) / los.norm()).clamp(-1.0, 1.0).asin().to_degrees() } else { f64::NAN };
+        let Some(tx) = tx else {
+            let rho_fs = (t3.label_fs() - down.t_tx.label_fs()) - s_to_fs(clock_rx_s)? + s_to_fs(rx.delay_s)?;
+            return Ok(Path { rho_fs, down, up: None, clock_rx_s, clock_tx_s: None, tx_utc: None, elevation_rx_deg });
+        };
+        let t2 = down.t_tx;
+        let x_sc = down.x_tx_m;
+        let t2s = TdbSeconds::from_epoch(&t2).map_err(|e| e.to_string())?;
+        let sh_up = ShapiroSet::for_receiver(&self.ephemeris, &self.shapiro, self.ppn_gamma, &t2s, &x_sc)?;
+        let up = solve_backward(&t2, &x_sc, &sh_up, |t| {
+            let s = self.earth.station_state_at_tdb(&self.ephemeris, tx, t).map_err(|e| format!("geometry unavailable: {e}"))?;
+            Ok((s.bcrs_position_m, s.bcrs_velocity_m_s))
+        })
+        .map_err(|e| format!("up leg: {e}"))?;
+        let st_tx = self.earth.station_state_at_tdb(&self.ephemeris, tx, &up.t_tx).map_err(|e| format!("geometry unavailable: {e}"))?;
+        let clock_tx_s = ratio_to_f64(st_tx.tdb.label_fs() - st_tx.tt.label_fs(), FS_PER_S);
+        let tx_utc = self.earth.time.convert(up.t_tx, TimeScale::Utc, st_tx.observer_term_s).map_err(|e| e.to_string())?;
+        let rho_fs = (t3.label_fs() - up.t_tx.label_fs()) - s_to_fs(clock_rx_s)? + s_to_fs(clock_tx_s)? + s_to_fs(rx.delay_s + tx.delay_s + self.transponder_delay_s)?;
+        Ok(Path { rho_fs, down, up: Some(up), clock_rx_s, clock_tx_s: Some(clock_tx_s), tx_utc: Some(tx_utc), elevation_rx_deg })
+    }
+
+    /// Proper-time rate of the spacecraft clock against TDB, minus one:
+    /// −(U + v²/2)/c² + L_B (TDB runs slower than TCB by L_B).
+    ///
+    /// # References
+    /// IERS Conventions 2010, eq. 10.1–10.2 (proper time in the BCRS) and
+    /// eq. 10.6 (TDB = TCB − L_B·(…)).
+    pub fn spacecraft_rate_offset(&self, t: &Epoch) -> Result<f64, String> {
+        let (x, v) = self.spacecraft(t)?;
+        let ts = TdbSeconds::from_epoch(t).map_err(|e| e.to_string())?;
+        let u_km2_s2 = self.field.potential_km2_s2(&self.ephemeris, &ts, &[x[0] / 1e3, x[1] / 1e3, x[2] / 1e3]).map_err(|e| e.to_string())?;
+        Ok(crate::time::clock_rate::proper_time_rate_offset(u_km2_s2 * 1e6, v.norm()) + L_B)
+    }
+
+    /// Computes one measurement.
+    pub fn compute(&self, m: &Measurement) -> Result<TrackingResult, String> {
+        if !m.rx_mjd_frac.is_finite() || !(0.0..1.0).contains(&m.rx_mjd_frac) {
+            return Err(format!("rx_mjd_frac out of range: {:?} is not in [0, 1)", m.rx_mjd_frac));
+        }
+        let rx = self.station(m.rx_station)?;
+        let rx_utc = self.earth.time.epoch_from_mjd(TimeScale::Utc, m.rx_mjd_day, m.rx_mjd_frac).map_err(|e| format!("reception time not convertible: {e}"))?;
+        let two_way = matches!(m.kind, Kind::LightTime2Way | Kind::Doppler2Way | Kind::Doppler3Way);
+        let tx = if two_way {
+            let code = m.tx_station.filter(|s| !s.is_empty()).unwrap_or(m.rx_station);
+            if m.kind == Kind::Doppler3Way && code == m.rx_station {
+                return Err("three-way Doppler needs a tx_station different from rx_station".into());
+            }
+            if matches!(m.kind, Kind::LightTime2Way | Kind::Doppler2Way) && code != m.rx_station {
+                return Err(format!("two-way measurement with tx_station '{code}' ≠ rx_station '{}': use doppler_3way", m.rx_station));
+            }
+            Some(self.station(code)?)
+        } else {
+            None
+        };
+        let is_doppler = matches!(m.kind, Kind::Doppler2Way | Kind::Doppler3Way | Kind::Doppler1Way);
+        if is_doppler && !(m.count_s.is_finite() && m.count_s > 0.0) {
+            return Err(format!("count_s invalid: {:?} (a Doppler count interval must be positive)", m.count_s));
+        }
+        if is_doppler && !(m.uplink_hz.is_finite() && m.uplink_hz > 0.0) {
+            return Err(format!("uplink_hz invalid: {:?} (must be positive)", m.uplink_hz));
+        }
+        let end = self.path(rx, tx, &rx_utc)?;
+        let computed = match m.kind {
+            Kind::LightTime2Way | Kind::LightTime1Way => ratio_to_f64(end.rho_fs, FS_PER_S),
+            Kind::Doppler2Way | Kind::Doppler3Way => {
+                let (num, den) = match self.turnaround {
+                    Some(r) => r,
+                    None => turnaround_ratio(m.uplink_hz).ok_or_else(|| format!("no turnaround ratio for uplink {} Hz (S or X band expected; set [target] turnaround_ratio)", m.uplink_hz))?,
+                };
+                let start_utc = self.utc_minus(&rx_utc, m.count_s)?;
+                let start = self.path(rx, tx, &start_utc)?;
+                let d_rho_s = ratio_to_f64(end.rho_fs - start.rho_fs, FS_PER_S);
+                num / den * m.uplink_hz * d_rho_s / m.count_s
+            }
+            Kind::Doppler1Way => {
+                let start_utc = self.utc_minus(&rx_utc, m.count_s)?;
+                let start = self.path(rx, None, &start_utc)?;
+                let dt2_s = ratio_to_f64(end.down.t_tx.label_fs() - start.down.t_tx.label_fs(), FS_PER_S);
+                let mid = start.down.t_tx.plus_fs((end.down.t_tx.label_fs() - start.down.t_tx.label_fs()) / 2).map_err(|e| e.to_string())?;
+                let rate = self.spacecraft_rate_offset(&mid)?;
+                // f_R = f_osc · Δτ_sc / T_c, F = f_osc − f_R; written so that
+                // the large common part cancels exactly.
+                m.uplink_hz * ((m.count_s - dt2_s) - dt2_s * rate) / m.count_s
+            }
+        };
+        Ok(TrackingResult {
+            computed,
+            light_time_down_s: end.down.light_time_s,
+            light_time_up_s: end.up.map(|u| u.light_time_s),
+            shapiro_down_s: end.down.shapiro_s,
+            shapiro_up_s: end.up.map(|u| u.shapiro_s),
+            clock_rx_s: end.clock_rx_s,
+            clock_tx_s: end.clock_tx_s,
+            bounce_tdb: end.down.t_tx,
+            tx_utc: end.tx_utc,
+            elevation_rx_deg: end.elevation_rx_deg,
+        })
+    }
+
+    fn utc_minus(&self, utc: &Epoch, s: f64) -> Result<Epoch, String> {
+        let tai = self.earth.time.convert(*utc, TimeScale::Tai, 0.0).map_err(|e| e.to_string())?;
+        let tai = tai.plus_fs(-s_to_fs(s)?).map_err(|e| e.to_string())?;
+        self.earth.time.convert(tai, TimeScale::Utc, 0.0).map_err(|e| e.to_string())
+    }
+
+    /// Computes a batch in parallel over fixed chunks, in input order.
+    pub fn compute_batch(&self, rows: &[Measurement]) -> Vec<Result<TrackingResult, String>> {
+        use rayon::prelude::*;
+        rows.par_chunks(self.chunk_rows.max(1)).flat_map_iter(|c| c.iter().map(|m| self.compute(m))).collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn kinds_and_turnaround() {
+        assert_eq!("doppler_3way".parse::<Kind>().unwrap(), Kind::Doppler3Way);
+        assert!("range".parse::<Kind>().is_err());
+        assert_eq!(turnaround_ratio(7.15e9), Some((880.0, 749.0)));
+        assert_eq!(turnaround_ratio(2.1e9), Some((240.0, 221.0)));
+        assert_eq!(turnaround_ratio(32e9), None);
+    }
+}
