@@ -236,3 +236,60 @@ fn every_tracking_row_is_accounted_for() {
     let up = out.column("light_time_up_s").unwrap();
     assert_eq!(up.null_count(), 0);
 }
+
+#[test]
+fn spice_written_type9_and_type13_files_read_as_spice_reads_them() {
+    // Files written by SPICE itself (spiceypy spkw09, degree 7; spkw13, degree
+    // 11; unequal steps), evaluated by SPICE: tests/reference/tracking_sweep.py.
+    let text = std::fs::read_to_string(root().join("tests/fixtures/spice_written_states.csv")).unwrap();
+    let mut seen = 0;
+    for name in ["spice_type9.bsp", "spice_type13.bsp"] {
+        let e = Ephemeris::load(&[root().join("data/de421.bsp"), root().join("tests/fixtures").join(name)]).unwrap();
+        let (mut mp, mut mv) = (0.0f64, 0.0f64);
+        for l in text.lines().filter(|l| l.starts_with(name)) {
+            let f: Vec<f64> = l.split(',').skip(1).map(|x| x.parse().unwrap()).collect();
+            let w = f[0].floor();
+            let s = e.state_ssb(-902, &TdbSeconds::new(w as i64, f[0] - w)).unwrap();
+            for i in 0..3 {
+                mp = mp.max((s.position_km[i] - f[1 + i]).abs());
+                mv = mv.max((s.velocity_km_s[i] - f[4 + i]).abs());
+            }
+            seen += 1;
+        }
+        eprintln!("{name} vs SPICE: {mp:.3e} km, {mv:.3e} km/s");
+        assert!(mp <= SPK13_POSITION_TOL_KM && mv <= SPK13_VELOCITY_TOL_KM_S, "{name}: {mp} km, {mv} km/s");
+    }
+    assert_eq!(seen, 600);
+}
+
+#[test]
+fn oem_of_the_demo_trajectory_matches_its_spk() {
+    // The demo spacecraft's states written as a CCSDS OEM (KVN, HERMITE,
+    // degree 11 = window 6, TDB) must interpolate exactly as the SPK type 13
+    // segment holding the same states; also through UTC epochs.
+    let e = Ephemeris::load(&[root().join("data/demo/lapse1.bsp")]).unwrap();
+    let lapse::ephemeris::SegmentData::Discrete(d) = &e.kernels()[0].segments[0].data else { panic!("type 13 expected") };
+    let ts = lapse::time::TimeScales::builtin();
+    let iso = |s: f64| {
+        let w = s.floor();
+        let ep = Epoch::from_uniform_fs(TimeScale::Tdb, J2000_FS + w as i128 * FS_PER_S + seconds_to_fs(s - w).unwrap()).unwrap();
+        ep.to_string().trim_end_matches(" TDB").to_string()
+    };
+    let mut text = String::from("CCSDS_OEM_VERS = 2.0\nCREATION_DATE = 2026-12-01T00:00:00\nORIGINATOR = LAPSE\nMETA_START\nOBJECT_NAME = LAPSE-1\nOBJECT_ID = 2025-999A\nCENTER_NAME = SOLAR SYSTEM BARYCENTER\nREF_FRAME = ICRF\nTIME_SYSTEM = TDB\n");
+    text += &format!("START_TIME = {}\nSTOP_TIME = {}\nINTERPOLATION = HERMITE\nINTERPOLATION_DEGREE = 11\nMETA_STOP\n", iso(d.epochs_s[0]), iso(*d.epochs_s.last().unwrap()));
+    for (t, s) in d.epochs_s.iter().zip(&d.states) {
+        text += &format!("{} {:.17e} {:.17e} {:.17e} {:.17e} {:.17e} {:.17e}\n", iso(*t), s[0], s[1], s[2], s[3], s[4], s[5]);
+    }
+    let k = lapse::ephemeris::oem::parse_oem(&text, Path::new("demo.oem"), -901, &ts).unwrap();
+    let mut oem = Ephemeris::default();
+    oem.add_kernel(k);
+    for i in 0..200 {
+        let t = TdbSeconds::new(797_861_000 + i * 1_291, 0.37);
+        let a = e.state_ssb(-901, &t).unwrap();
+        let b = oem.state_ssb(-901, &t).unwrap();
+        for k in 0..3 {
+            assert!((a.position_km[k] - b.position_km[k]).abs() < 1e-9, "{i}");
+            assert!((a.velocity_km_s[k] - b.velocity_km_s[k]).abs() < 1e-13);
+        }
+    }
+}

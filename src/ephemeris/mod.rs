@@ -8,6 +8,7 @@
 //! segments' centres down to the solar-system barycentre (NAIF 0).
 
 pub mod naif;
+pub mod oem;
 mod spk;
 pub mod spk_write;
 
@@ -85,6 +86,11 @@ impl Ephemeris {
             kernels.push(k);
         }
         Ok(Self { kernels })
+    }
+
+    /// Adds a kernel (taking precedence over those loaded before).
+    pub fn add_kernel(&mut self, k: SpkKernel) {
+        self.kernels.push(k);
     }
 
     /// From already parsed kernels.

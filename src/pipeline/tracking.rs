@@ -34,6 +34,10 @@ struct TargetCfg {
     transponder_delay_s: f64,
     /// [numerator, denominator]; default by uplink band.
     turnaround_ratio: Option<[f64; 2]>,
+    /// CCSDS OEM files (KVN) giving the target's trajectory; they take
+    /// precedence over the kernels.
+    #[serde(default)]
+    oem: Vec<PathBuf>,
 }
 
 #[derive(Debug, Default, Deserialize)]
@@ -88,7 +92,7 @@ pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<Loade
     if kernels.is_empty() {
         return Err(invalid("[ephemeris] kernels is empty".into()));
     }
-    let ephemeris = Ephemeris::load(&kernels).map_err(|e| invalid(format!("[ephemeris] {e}")))?;
+    let mut ephemeris = Ephemeris::load(&kernels).map_err(|e| invalid(format!("[ephemeris] {e}")))?;
     for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
         inputs.push(("kernel".into(), k.clone(), super::kernel_coverage(loaded)));
     }
@@ -113,6 +117,12 @@ pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<Loade
         toml::Value::String(s) => body_id(s, &[]).ok_or_else(|| invalid(format!("[target] body '{s}' is not a known name or NAIF id")))?,
         other => return Err(invalid(format!("[target] body = {other}: give a NAIF id or name"))),
     };
+    for p in &cfg.target.oem {
+        let p = file.resolve(p);
+        let k = crate::ephemeris::oem::load_oem(&p, target, &earth.time).map_err(|e| invalid(format!("[target] oem: {e}")))?;
+        inputs.push(("oem".into(), p, super::kernel_coverage(&k)));
+        ephemeris.add_kernel(k);
+    }
     if ephemeris.kernels().iter().all(|k| k.segments.iter().all(|s| s.target != target)) {
         return Err(invalid(format!("[target] body {target}: no loaded kernel holds it")));
     }

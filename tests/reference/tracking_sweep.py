@@ -70,3 +70,32 @@ with open(os.path.join(out, "light_time_sweep.csv"), "w") as f:
         g = k2 / C**2
         sh = k2 / C**3 * math.log((r1 + r2 + r12 + g) / (r1 + r2 - r12 + g))
         f.write(f"{et3!r},{et2!r},{float(lt_down)!r},{float(lt_up)!r},{float(sh)!r}\n")
+
+# SPICE-written type 9 (Lagrange, degree 7) and type 13 (Hermite, degree 11)
+# segments with unequal steps, from states of the demo spacecraft; SPICE's own
+# evaluation at 300 random epochs (spkw09/spkw13 then spkezr 'NONE').
+sp.kclear()
+sp.furnsh(os.path.join(root, "data", "de421.bsp"))
+sp.furnsh(os.path.join(root, "data", "demo", "lapse1.bsp"))
+base = 797870000.0
+epochs = [base + 600.0 * k + 47.0 * math.sin(1.3 * k) for k in range(230)]
+states = [list(sp.spkezr("-901", e, "J2000", "NONE", "SSB")[0]) for e in epochs]
+for typ, degree, name in [(9, 7, "spice_type9.bsp"), (13, 11, "spice_type13.bsp")]:
+    path = os.path.join(out, name)
+    if os.path.exists(path):
+        os.remove(path)
+    h = sp.spkopn(path, "lapse reference", 0)
+    w = sp.spkw09 if typ == 9 else sp.spkw13
+    w(h, -902, 0, "J2000", epochs[0], epochs[-1], f"type {typ} test", degree, len(epochs), states, epochs)
+    sp.spkcls(h)
+sp.kclear()
+with open(os.path.join(out, "spice_written_states.csv"), "w") as f:
+    f.write(header)
+    f.write("file,et,x_km,y_km,z_km,vx_km_s,vy_km_s,vz_km_s\n")
+    for name in ["spice_type9.bsp", "spice_type13.bsp"]:
+        sp.furnsh(os.path.join(out, name))
+        for k in range(300):
+            et = float(rng.uniform(epochs[0], epochs[-1])) if k > 1 else [epochs[0], epochs[-1]][k]
+            st, _ = sp.spkezr("-902", et, "J2000", "NONE", "SSB")
+            f.write(f"{name},{et!r}," + ",".join(repr(float(x)) for x in st) + "\n")
+        sp.kclear()
