@@ -293,3 +293,51 @@ fn oem_of_the_demo_trajectory_matches_its_spk() {
         }
     }
 }
+
+#[test]
+fn troposphere_is_opt_in_and_sized_right() {
+    let d = tmpdir("tropo");
+    let input = root().join("data/demo/tracking_obs.parquet");
+    let plain = pipeline(&d, &input);
+    let text = std::fs::read_to_string(&plain).unwrap().replace(
+        "ppn_gamma = 1.0",
+        "ppn_gamma = 1.0\n[corrections.troposphere]\nenabled = true\n[corrections.troposphere.stations.KESTREL-1]\npressure_hpa = 978.0\ntemperature_k = 295.0\nrelative_humidity = 0.4\n",
+    );
+    let tropo = d.join("tropo.toml");
+    std::fs::write(&tropo, text.replace(&d.join("out.parquet").display().to_string(), &d.join("tropo.parquet").display().to_string())).unwrap();
+    assert_eq!(lapse(&["run", plain.to_str().unwrap(), "-q"]).status.code(), Some(0));
+    let o = lapse(&["run", tropo.to_str().unwrap(), "-q"]);
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    let (a, b) = (read(&d.join("out.parquet")), read(&d.join("tropo.parquet")));
+    let col = |df: &DataFrame, c: &str| -> Vec<f64> { df.column(c).unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect() };
+    let kinds: Vec<String> = b.column("kind").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
+    let (ta, tb, ca, cb) = (col(&a, "troposphere_s"), col(&b, "troposphere_s"), col(&a, "computed"), col(&b, "computed"));
+    assert!(ta.iter().all(|x| *x == 0.0), "off by default");
+    for i in 0..b.height() {
+        if kinds[i] == "light_time_2way" {
+            // Two legs above 15°, stations at 0.3–1 km: zenith 1.8–2.6 m per leg,
+            // mapping 1–3.9 → 12–70 ns (common-practice magnitudes).
+            assert!((1.2e-8..7e-8).contains(&tb[i]), "row {i}: {}", tb[i]);
+            // ρ grows by exactly the tropospheric delay (to 1 ps of geometry).
+            assert!((cb[i] - ca[i] - tb[i]).abs() < 1e-12, "row {i}");
+        }
+    }
+    let md: std::collections::BTreeMap<String, String> = lapse::io::read_parquet_metadata(&d.join("tropo.parquet")).unwrap().into_iter().collect();
+    assert!(md["lapse.corrections.troposphere"].contains("Saastamoinen"));
+}
+
+#[test]
+fn demo_residuals_are_white_at_the_injected_noise() {
+    // The demo measurements carry Gaussian noise of each row's sigma, so the
+    // normalised residuals have χ²/N ≈ 1 per kind (N ≈ 35–320: allow ±40 %).
+    let out = read(&root().join("tests/golden/tracking_demo.parquet"));
+    let kinds: Vec<String> = out.column("kind").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
+    let r: Vec<f64> = out.column("residual").unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect();
+    let s: Vec<f64> = out.column("sigma").unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect();
+    for kind in ["light_time_2way", "doppler_2way", "doppler_3way"] {
+        let z: Vec<f64> = (0..r.len()).filter(|i| kinds[*i] == kind).map(|i| (r[i] / s[i]).powi(2)).collect();
+        let chi2_n = z.iter().sum::<f64>() / z.len() as f64;
+        eprintln!("{kind}: {} rows, χ²/N {chi2_n:.3}", z.len());
+        assert!((0.6..1.4).contains(&chi2_n), "{kind}: {chi2_n}");
+    }
+}

@@ -45,6 +45,18 @@ struct TargetCfg {
 struct CorrectionsCfg {
     shapiro_bodies: Option<Vec<String>>,
     ppn_gamma: Option<f64>,
+    troposphere: Option<TroposphereCfg>,
+}
+
+/// `[corrections.troposphere]`: off unless `enabled = true`; surface
+/// meteorology per station, the standard atmosphere for the others.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct TroposphereCfg {
+    #[serde(default)]
+    enabled: bool,
+    #[serde(default)]
+    stations: BTreeMap<String, crate::tracking::troposphere::SurfaceMet>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -138,6 +150,16 @@ pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<Loade
         None => None,
     };
     let field = PointMassField::solar_system(&constants.ephemeris).map_err(invalid)?;
+    let troposphere = match &cfg.corrections.troposphere {
+        Some(t) if t.enabled => {
+            for (code, met) in &t.stations {
+                stations.get(code).map_err(|e| invalid(format!("[corrections.troposphere] {e}")))?;
+                met.validate().map_err(|e| invalid(format!("[corrections.troposphere.stations.{code}] {e}")))?;
+            }
+            Some(crate::tracking::observables::Troposphere { stations: t.stations.clone() })
+        }
+        _ => None,
+    };
     let ctx = TrackingContext {
         ephemeris,
         earth,
@@ -148,6 +170,7 @@ pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<Loade
         transponder_delay_s: cfg.target.transponder_delay_s,
         turnaround,
         field,
+        troposphere,
         chunk_rows: super::DEFAULT_CHUNK_ROWS,
     };
     Ok(LoadedTracking {
@@ -270,6 +293,7 @@ pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary
         Column::new("tx_mjd_day".into(), tx.iter().map(|t| t.map(|x| x.0)).collect::<Vec<Option<i64>>>()),
         ocol("tx_mjd_frac", tx.iter().map(|t| t.map(|x| x.1)).collect()),
         fcol("elevation_rx_deg", good.iter().map(|(_, g)| g.elevation_rx_deg).collect()),
+        fcol("troposphere_s", good.iter().map(|(_, g)| g.troposphere_s).collect()),
     ];
     let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
     let (mut out, mut rejects) = assemble(&df, &lt.input_path, &ok, &reasons, computed, &[])?;
@@ -302,6 +326,10 @@ pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary
     prov.set("constants.c_m_s", "299792458");
     prov.set("target.naif_id", &lt.ctx.target.to_string());
     prov.set("target.transponder_delay_s", &format!("{:e}", lt.ctx.transponder_delay_s));
+    prov.set("corrections.troposphere", match &lt.ctx.troposphere {
+        Some(_) => "Saastamoinen 1972 zenith + Black & Eisner 1984 mapping",
+        None => "off",
+    });
     prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
     let metadata = prov.finish();
     write_parquet(&mut out, &lt.output_path, &metadata)?;

@@ -2,3 +2,4 @@
 
 pub mod observables;
 pub mod propagate;
+pub mod troposphere;

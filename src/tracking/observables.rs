@@ -33,6 +33,7 @@ use crate::time::femto::{FS_PER_S, ratio_to_f64, seconds_to_fs};
 use crate::time::relativistic::L_B;
 use crate::time::{Epoch, TimeScale};
 use crate::tracking::propagate::PointMassField;
+use crate::tracking::troposphere::{SurfaceMet, slant_delay_s};
 
 /// Kinds of measurement.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -74,8 +75,32 @@ pub struct TrackingContext {
     pub turnaround: Option<(f64, f64)>,
     /// Gravity field for the spacecraft clock's proper-time rate.
     pub field: PointMassField,
+    /// Tropospheric correction, when asked for.
+    pub troposphere: Option<Troposphere>,
     /// Rows per parallel work unit.
     pub chunk_rows: usize,
+}
+
+/// Opt-in tropospheric correction: surface meteorology per station, or the
+/// standard atmosphere at the station's height for stations not listed.
+#[derive(Clone, Debug, Default)]
+pub struct Troposphere {
+    pub stations: std::collections::BTreeMap<String, SurfaceMet>,
+}
+
+impl Troposphere {
+    /// Slant delay (s) at a station for the spacecraft at `elevation_deg`.
+    fn delay_s(&self, st: &Station, elevation_deg: f64) -> Result<f64, String> {
+        if st.itrf_m == [0.0; 3] {
+            return Ok(0.0);
+        }
+        if !(elevation_deg > 0.0) {
+            return Err(format!("spacecraft below the horizon at {} (elevation {elevation_deg:.2}°): no tropospheric model", st.code));
+        }
+        let (_, lat, h) = sofars::coords::gc2gd(2, st.itrf_m).map_err(|_| format!("no geodetic position for {}", st.code))?;
+        let met = self.stations.get(&st.code).copied().unwrap_or_else(|| SurfaceMet::standard(h));
+        Ok(slant_delay_s(&met, lat, h, elevation_deg.to_radians()))
+    }
 }
 
 /// One measurement.
@@ -109,6 +134,8 @@ pub struct TrackingResult {
     pub tx_utc: Option<Epoch>,
     /// Elevation of the spacecraft at the receiver (geometric, deg; NaN at the geocentre).
     pub elevation_rx_deg: f64,
+    /// Tropospheric delay included in the computed light time, s (0 when off).
+    pub troposphere_s: f64,
 }
 
 /// One light-time solution of a (possibly two-leg) path.
@@ -121,6 +148,7 @@ struct Path {
     clock_tx_s: Option<f64>,
     tx_utc: Option<Epoch>,
     elevation_rx_deg: f64,
+    troposphere_s: f64,
 }
 
 fn s_to_fs(x: f64) -> Result<i128, String> {
@@ -162,9 +190,16 @@ impl TrackingContext {
         let los = down.x_tx_m - x_rx;
         let up_vec = st_rx.up_gcrs;
         let elevation_rx_deg = if up_vec.norm() > 0.0 { (up_vec.dot(&los) / los.norm()).clamp(-1.0, 1.0).asin().to_degrees() } else { f64::NAN };
+        // The tropospheric delay is added to the light time of each leg that
+        // touches a station; its effect on the geometry (moving the
+        // spacecraft epoch by ≤ 70 ns) changes ρ by ≤ (v/c)·70 ns ≈ 7 ps.
+        let trop_rx = match &self.troposphere {
+            Some(t) => t.delay_s(rx, elevation_rx_deg)?,
+            None => 0.0,
+        };
         let Some(tx) = tx else {
-            let rho_fs = (t3.label_fs() - down.t_tx.label_fs()) - s_to_fs(clock_rx_s)? + s_to_fs(rx.delay_s)?;
-            return Ok(Path { rho_fs, down, up: None, clock_rx_s, clock_tx_s: None, tx_utc: None, elevation_rx_deg });
+            let rho_fs = (t3.label_fs() - down.t_tx.label_fs()) - s_to_fs(clock_rx_s)? + s_to_fs(rx.delay_s + trop_rx)?;
+            return Ok(Path { rho_fs, down, up: None, clock_rx_s, clock_tx_s: None, tx_utc: None, elevation_rx_deg, troposphere_s: trop_rx });
         };
         let t2 = down.t_tx;
         let x_sc = down.x_tx_m;
@@ -178,8 +213,16 @@ impl TrackingContext {
         let st_tx = self.earth.station_state_at_tdb(&self.ephemeris, tx, &up.t_tx).map_err(|e| format!("geometry unavailable: {e}"))?;
         let clock_tx_s = ratio_to_f64(st_tx.tdb.label_fs() - st_tx.tt.label_fs(), FS_PER_S);
         let tx_utc = self.earth.time.convert(up.t_tx, TimeScale::Utc, st_tx.observer_term_s).map_err(|e| e.to_string())?;
-        let rho_fs = (t3.label_fs() - up.t_tx.label_fs()) - s_to_fs(clock_rx_s)? + s_to_fs(clock_tx_s)? + s_to_fs(rx.delay_s + tx.delay_s + self.transponder_delay_s)?;
-        Ok(Path { rho_fs, down, up: Some(up), clock_rx_s, clock_tx_s: Some(clock_tx_s), tx_utc: Some(tx_utc), elevation_rx_deg })
+        let trop_tx = match &self.troposphere {
+            Some(t) => {
+                let los = x_sc - st_tx.bcrs_position_m;
+                let el = if st_tx.up_gcrs.norm() > 0.0 { (st_tx.up_gcrs.dot(&los) / los.norm()).clamp(-1.0, 1.0).asin().to_degrees() } else { f64::NAN };
+                t.delay_s(tx, el)?
+            }
+            None => 0.0,
+        };
+        let rho_fs = (t3.label_fs() - up.t_tx.label_fs()) - s_to_fs(clock_rx_s)? + s_to_fs(clock_tx_s)? + s_to_fs(rx.delay_s + tx.delay_s + self.transponder_delay_s + trop_rx + trop_tx)?;
+        Ok(Path { rho_fs, down, up: Some(up), clock_rx_s, clock_tx_s: Some(clock_tx_s), tx_utc: Some(tx_utc), elevation_rx_deg, troposphere_s: trop_rx + trop_tx })
     }
 
     /// Proper-time rate of the spacecraft clock against TDB, minus one:
@@ -257,6 +300,7 @@ impl TrackingContext {
             bounce_tdb: end.down.t_tx,
             tx_utc: end.tx_utc,
             elevation_rx_deg: end.elevation_rx_deg,
+            troposphere_s: end.troposphere_s,
         })
     }
 
