@@ -15,6 +15,7 @@ pub mod ephemeris;
 pub mod io;
 pub mod light_time;
 pub mod pipeline;
+pub mod plots;
 pub mod pulsar;
 pub mod time;
 pub mod tracking;

@@ -38,6 +38,16 @@ enum Command {
         /// Rows per parallel work unit; results do not depend on it.
         #[arg(long, default_value_t = lapse::pipeline::DEFAULT_CHUNK_ROWS)]
         chunk_rows: usize,
+        /// Do not write residual plots.
+        #[arg(long)]
+        no_plots: bool,
+    },
+    /// Check a pipeline and its inputs without computing residuals: schema,
+    /// unknown stations, coverage of kernels, EOP, leap seconds and clock
+    /// tables. Exit 0 clean, 1 problems found, 2 unusable.
+    Check {
+        /// The pipeline TOML file.
+        pipeline: PathBuf,
     },
     /// Write arrival times that are exact under a pulsar pipeline's model
     /// (solved to ≤ 1 ps), optionally with white noise.
@@ -135,19 +145,32 @@ enum Command {
 }
 
 fn main() -> ExitCode {
+    // Panics inside guarded readers of outside files (and polars' own worker
+    // threads) are turned into errors by the library: keep them off the
+    // terminal. Any other panic is a bug and is reported as usual.
+    let default_hook = std::panic::take_hook();
+    std::panic::set_hook(Box::new(move |info| {
+        let polars_thread = std::thread::current().name().is_some_and(|n| n.starts_with("polars"));
+        if !(lapse::io::in_guarded_reader() || polars_thread) {
+            default_hook(info);
+        }
+    }));
     let cli = Cli::parse();
+    // `run` reports progress at info level by default; other commands only warn.
+    let default_info = matches!(cli.command, Command::Run { .. });
     let level = if cli.quiet {
         "error"
     } else {
-        match cli.verbose {
-            0 => "warn",
-            1 => "info",
+        match (cli.verbose, default_info) {
+            (0, false) => "warn",
+            (0, true) | (1, _) => "info",
             _ => "debug",
         }
     };
     let filter = tracing_subscriber::EnvFilter::try_from_env("LAPSE_LOG")
         .unwrap_or_else(|_| tracing_subscriber::EnvFilter::new(level));
-    tracing_subscriber::fmt().with_env_filter(filter).with_writer(std::io::stderr).init();
+    use std::io::IsTerminal;
+    tracing_subscriber::fmt().with_env_filter(filter).with_writer(std::io::stderr).with_ansi(std::io::stderr().is_terminal()).init();
     match dispatch(cli) {
         Ok(code) => code,
         Err(e) => {
@@ -159,15 +182,44 @@ fn main() -> ExitCode {
 
 fn dispatch(cli: Cli) -> Result<ExitCode> {
     match cli.command {
-        Command::Run { pipeline, output, threads, chunk_rows } => {
-            let opts = lapse::pipeline::RunOptions { output, chunk_rows };
-            match threads {
+        Command::Check { pipeline } => {
+            let report = lapse::pipeline::preflight::preflight(&pipeline);
+            print!("{}", report.render());
+            Ok(ExitCode::from(report.exit_code()))
+        }
+        Command::Run { pipeline, output, threads, chunk_rows, no_plots } => {
+            // The same checks as `lapse check`, first: stop when unusable,
+            // report problems (their rows will be rejected with reasons).
+            let report = lapse::pipeline::preflight::preflight(&pipeline);
+            match report.exit_code() {
+                2 => {
+                    eprint!("{}", report.render());
+                    let first = report.findings.iter().find(|f| f.level == lapse::pipeline::preflight::Level::Unusable).map(|f| f.text.clone()).unwrap_or_default();
+                    bail!("preflight: {first}");
+                }
+                1 if !cli.quiet => {
+                    for f in report.findings.iter().filter(|f| f.level >= lapse::pipeline::preflight::Level::Note) {
+                        tracing::warn!("preflight: {}", f.text);
+                    }
+                }
+                _ => {}
+            }
+            let progress = std::sync::Arc::new(std::sync::atomic::AtomicUsize::new(0));
+            let opts = lapse::pipeline::RunOptions { output, chunk_rows, plots: !no_plots, progress: Some(progress.clone()) };
+            let done = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
+            let watcher = (!cli.quiet).then(|| spawn_progress(&pipeline, progress, done.clone()));
+            let result = match threads {
                 Some(n) => {
                     let pool = rayon::ThreadPoolBuilder::new().num_threads(n).build().context("cannot start the worker threads")?;
                     pool.install(|| run(pipeline, &opts, cli.quiet))
                 }
                 None => run(pipeline, &opts, cli.quiet),
+            };
+            done.store(true, std::sync::atomic::Ordering::Relaxed);
+            if let Some(w) = watcher {
+                let _ = w.join();
             }
+            result
         }
         Command::Synth { pipeline, plan, output, noise_ns, noise_from_sigma, seed } => {
             let file = lapse::pipeline::PipelineFile::read(&pipeline)?;
@@ -258,6 +310,39 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
     }
 }
 
+/// Progress display: a bar with rows/s and time remaining on an interactive
+/// terminal (after the first second), periodic log lines otherwise.
+fn spawn_progress(pipeline: &std::path::Path, counter: std::sync::Arc<std::sync::atomic::AtomicUsize>, done: std::sync::Arc<std::sync::atomic::AtomicBool>) -> std::thread::JoinHandle<()> {
+    use std::io::IsTerminal;
+    use std::sync::atomic::Ordering;
+    let total = lapse::pipeline::input_rows(pipeline).unwrap_or(0) as u64;
+    let tty = std::io::stderr().is_terminal();
+    std::thread::spawn(move || {
+        let start = std::time::Instant::now();
+        let mut bar: Option<indicatif::ProgressBar> = None;
+        let mut last_log = std::time::Instant::now();
+        while !done.load(Ordering::Relaxed) {
+            std::thread::sleep(std::time::Duration::from_millis(100));
+            let n = counter.load(Ordering::Relaxed) as u64;
+            if tty && bar.is_none() && start.elapsed().as_secs_f64() > 1.0 {
+                let b = indicatif::ProgressBar::new(total.max(1));
+                b.set_style(indicatif::ProgressStyle::with_template("{bar:40} {pos}/{len} rows  {per_sec}  eta {eta}").unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()));
+                bar = Some(b);
+            }
+            if let Some(b) = &bar {
+                b.set_position(n);
+            } else if !tty && last_log.elapsed().as_secs() >= 10 {
+                let rate = n as f64 / start.elapsed().as_secs_f64();
+                tracing::info!(rows = n, total, rows_per_s = rate.round(), "progress");
+                last_log = std::time::Instant::now();
+            }
+        }
+        if let Some(b) = bar {
+            b.finish_and_clear();
+        }
+    })
+}
+
 fn run(pipeline: PathBuf, opts: &lapse::pipeline::RunOptions, quiet: bool) -> Result<ExitCode> {
     let s = lapse::pipeline::run(&pipeline, opts)?;
     if !quiet {
@@ -266,6 +351,12 @@ fn run(pipeline: PathBuf, opts: &lapse::pipeline::RunOptions, quiet: bool) -> Re
         writeln!(out, "rows in    {}", s.rows_in)?;
         writeln!(out, "rows out   {}  → {}", s.rows_out, s.output.display())?;
         writeln!(out, "rejected   {}  → {}", s.rows_rejected, s.rejects.display())?;
+        if s.partitions_done + s.partitions_skipped > 1 {
+            writeln!(out, "partitions {} processed, {} up to date (skipped)", s.partitions_done, s.partitions_skipped)?;
+        }
+        if !s.plots.is_empty() {
+            writeln!(out, "plots      {}", s.plots.iter().filter(|p| p.extension().is_some_and(|e| e == "png")).map(|p| p.display().to_string()).collect::<Vec<_>>().join(", "))?;
+        }
         for (reason, n) in &s.rejects_by_reason {
             writeln!(out, "  {n:>8}  {reason}")?;
         }

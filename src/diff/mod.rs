@@ -148,22 +148,22 @@ impl DiffReport {
 
 fn schema(path: &Path) -> Result<Vec<(String, DataType)>, DiffError> {
     let f = std::fs::File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
-    let res = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| ParquetReader::new(f).with_slice(Some((0, 0))).finish()));
+    let res = crate::io::guarded(|| ParquetReader::new(f).with_slice(Some((0, 0))).finish());
     let df = match res {
-        Ok(Ok(df)) => df,
-        Ok(Err(e)) => return Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
-        Err(_) => return Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
+        Some(Ok(df)) => df,
+        Some(Err(e)) => return Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
+        None => return Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
     };
     Ok(df.schema().iter().map(|(n, t)| (n.to_string(), t.clone())).collect())
 }
 
 fn read_columns(path: &Path, cols: &[String]) -> Result<DataFrame, DiffError> {
     let f = std::fs::File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
-    let res = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| ParquetReader::new(f).with_columns(Some(cols.to_vec())).finish()));
+    let res = crate::io::guarded(|| ParquetReader::new(f).with_columns(Some(cols.to_vec())).finish());
     match res {
-        Ok(Ok(df)) => Ok(df),
-        Ok(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
-        Err(_) => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
+        Some(Ok(df)) => Ok(df),
+        Some(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
+        None => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
     }
 }
 

@@ -82,7 +82,7 @@ impl Ephemeris {
         let mut kernels = Vec::with_capacity(paths.len());
         for p in paths {
             let k = SpkKernel::load(p.as_ref())?;
-            tracing::info!(path = %p.as_ref().display(), segments = k.segments.len(), "loaded SPK kernel");
+            tracing::debug!(path = %p.as_ref().display(), segments = k.segments.len(), "loaded SPK kernel");
             kernels.push(k);
         }
         Ok(Self { kernels })

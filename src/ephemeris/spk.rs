@@ -246,12 +246,11 @@ impl SpkKernel {
     pub fn parse(bytes: &[u8], path: &Path) -> Result<Self, EphemerisError> {
         // anise's DAF reader is careful, but a crafted file must never take the
         // process down: contain any panic as an error.
-        let owned = bytes.to_vec();
-        let parsed = std::panic::catch_unwind(move || anise::naif::SPK::parse(owned.as_slice()));
+        let parsed = crate::io::guarded(|| anise::naif::SPK::parse(bytes));
         let daf = match parsed {
-            Ok(Ok(d)) => d,
-            Ok(Err(e)) => return Err(kernel_err(path, format!("not a readable SPK file: {e}"))),
-            Err(_) => return Err(kernel_err(path, "not a readable SPK file (the DAF reader failed)")),
+            Some(Ok(d)) => d,
+            Some(Err(e)) => return Err(kernel_err(path, format!("not a readable SPK file: {e}"))),
+            None => return Err(kernel_err(path, "not a readable SPK file (the DAF reader failed)")),
         };
         let mut summaries: Vec<SPKSummaryRecord> = Vec::new();
         for block in daf.iter_summary_blocks() {

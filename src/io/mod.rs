@@ -22,28 +22,55 @@ pub enum IoError {
     Write { path: PathBuf, message: String },
 }
 
+thread_local! {
+    static IN_GUARDED_READER: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
+}
+
+/// True while this thread runs a reader whose panics are turned into errors
+/// (a panic hook may stay quiet then).
+pub fn in_guarded_reader() -> bool {
+    IN_GUARDED_READER.with(|c| c.get())
+}
+
+/// Runs a reader of outside data, turning a panic inside it into `None`.
+/// polars 0.55 panics on some corrupt Parquet files (found by
+/// `tests/fuzz_readers.rs`); this keeps them errors.
+pub fn guarded<T>(f: impl FnOnce() -> T) -> Option<T> {
+    IN_GUARDED_READER.with(|c| c.set(true));
+    let r = std::panic::catch_unwind(std::panic::AssertUnwindSafe(f)).ok();
+    IN_GUARDED_READER.with(|c| c.set(false));
+    r
+}
+
 /// Reads a whole Parquet file.
 pub fn read_parquet(path: &Path) -> Result<DataFrame, IoError> {
     let f = File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
     // polars panics on some corrupt inputs; contain that as an error.
-    let res = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| ParquetReader::new(f).finish()));
+    let res = guarded(|| ParquetReader::new(f).finish()).ok_or(());
     match res {
         Ok(Ok(df)) => Ok(df),
         Ok(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }),
-        Err(_) => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }),
+        Err(()) => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }),
     }
 }
 
 /// Key-value metadata of a Parquet file, in file order.
 pub fn read_parquet_metadata(path: &Path) -> Result<Vec<(String, String)>, IoError> {
     let f = File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
-    let mut reader = ParquetReader::new(f);
-    let md = reader.get_metadata().map_err(|e| IoError::Parquet { path: path.into(), message: e.to_string() })?;
-    Ok(md
-        .key_value_metadata()
-        .as_ref()
-        .map(|kv| kv.iter().map(|k| (k.key.clone(), k.value.clone().unwrap_or_default())).collect())
-        .unwrap_or_default())
+    let res = guarded(|| {
+        let mut reader = ParquetReader::new(f);
+        reader.get_metadata().map(|md| -> Vec<(String, String)> {
+            md.key_value_metadata()
+                .as_ref()
+                .map(|kv| kv.iter().map(|k| (k.key.clone(), k.value.clone().unwrap_or_default())).collect())
+                .unwrap_or_default()
+        })
+    });
+    match res {
+        Some(Ok(v)) => Ok(v),
+        Some(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }),
+        None => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (metadata reader failed)".into() }),
+    }
 }
 
 /// Writes a table with key-value metadata to `path`, through a temporary

@@ -262,6 +262,7 @@ pub fn load_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedP
         shapiro,
         ppn_gamma,
         chunk_rows: super::DEFAULT_CHUNK_ROWS,
+        progress: None,
     };
     Ok(LoadedPulsar {
         ctx,
@@ -350,15 +351,33 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
     out
 }
 
-/// Runs a pulsar pipeline.
+/// Runs a pulsar pipeline (one input file, or every partition of a folder
+/// or glob, skipping partitions whose outputs are up to date).
 pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
-    let mut prov = Provenance::start(file);
     let mut lp = load_pulsar(file, opts.output.as_deref())?;
     lp.ctx.chunk_rows = opts.chunk_rows;
-    let df = read_parquet(&lp.input_path)?;
-    let input = read_pulsar_input(&df, &lp.input_path)?;
-    check_unique_ids(&input.obs_id, &lp.input_path)?;
-    let results = compute_pulsar(&mut lp, &input);
+    lp.ctx.progress = opts.progress.clone();
+    let mut base = Provenance::start(file);
+    for (role, p, cov) in &lp.inputs {
+        base.add_input(role, p, cov)?;
+    }
+    base.set("constants.ephemeris", &lp.constants.ephemeris.name);
+    for b in &lp.ctx.shapiro {
+        base.set(&format!("constants.gm_m3_s2.{}", b.name), &format!("{:e}", b.gm_m3_s2));
+    }
+    base.set("constants.ppn_gamma", &format!("{}", lp.ctx.ppn_gamma));
+    base.set("constants.dispersion_k_s_mhz2_cm3_pc", &format!("{DISPERSION_K_S_MHZ2_CM3_PC:e} (1/2.41e-4)"));
+    base.set("constants.c_m_s", "299792458");
+    let (input, output) = (lp.input_path.clone(), lp.output_path.clone());
+    super::for_each_partition(&input, &output, &base, |inp, out, prov| run_pulsar_partition(&mut lp, inp, out, prov, opts.plots))
+}
+
+/// One partition of a pulsar run.
+fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
+    let df = read_parquet(input_path)?;
+    let input = read_pulsar_input(&df, input_path)?;
+    check_unique_ids(&input.obs_id, input_path)?;
+    let results = compute_pulsar(lp, &input);
 
     // Residuals: optional weighted-mean removal over the accepted rows.
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
@@ -395,9 +414,9 @@ pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSu
     computed.push(Column::new("clock_extrapolated".into(), good.iter().map(|g| g.clock_extrapolated).collect::<Vec<bool>>()));
     computed.push(Column::new("eop_predicted".into(), good.iter().map(|g| g.eop_predicted).collect::<Vec<bool>>()));
     let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
-    let (mut out, mut rejects) = assemble(&df, &lp.input_path, &ok, &reasons, computed, &[])?;
+    let (mut out, mut rejects) = assemble(&df, input_path, &ok, &reasons, computed, &[])?;
 
-    let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), &lp.output_path, &reasons);
+    let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), output_path, &reasons);
     summary.notes.push(format!(
         "residuals: {} rows, weighted RMS {:.3} ns, χ² {:.2} (χ²/N {:.3}){}",
         stats.count,
@@ -406,17 +425,24 @@ pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSu
         if stats.count > 0 { stats.chi2 / stats.count as f64 } else { 0.0 },
         if lp.subtract_weighted_mean { format!(", weighted mean {:.3} ns removed", offset * 1e9) } else { String::new() }
     ));
-    // Per-site lines.
-    let sites: Vec<&str> = results.iter().zip(&input.site).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.as_deref().unwrap_or("")).collect();
-    let mut by_site: BTreeMap<&str, (Vec<f64>, Vec<f64>)> = BTreeMap::new();
-    for ((s, r), sg) in sites.iter().zip(&residual).zip(&sigma_s) {
-        let e = by_site.entry(s).or_default();
-        e.0.push(*r);
-        e.1.push(*sg);
+    // Per-site table: rows, rejected, weighted RMS, χ².
+    let mut by_site: BTreeMap<String, (Vec<f64>, Vec<f64>, usize)> = BTreeMap::new();
+    let mut k = 0;
+    for (i, r) in results.iter().enumerate() {
+        let site = input.site[i].clone().unwrap_or_else(|| "(null)".into());
+        let e = by_site.entry(site).or_default();
+        if r.is_ok() {
+            e.0.push(residual[k]);
+            e.1.push(sigma_s[k]);
+            k += 1;
+        } else {
+            e.2 += 1;
+        }
     }
-    for (s, (r, sg)) in &by_site {
+    summary.notes.push(format!("  {:<14} {:>8} {:>9} {:>18} {:>12}", "site", "rows", "rejected", "weighted RMS (ns)", "χ²"));
+    for (s, (r, sg, rej)) in &by_site {
         let st = residual_summary(r, sg, false);
-        summary.notes.push(format!("  site {s:<12} {:>8} rows  weighted RMS {:>10.3} ns  χ² {:>10.2}", st.count, st.weighted_rms_s * 1e9, st.chi2));
+        summary.notes.push(format!("  {s:<14} {:>8} {:>9} {:>18.3} {:>12.2}", st.count, rej, st.weighted_rms_s * 1e9, st.chi2));
     }
     if good.iter().any(|g| g.eop_predicted) {
         summary.notes.push(format!("{} rows used PREDICTED Earth-orientation values (column eop_predicted)", good.iter().filter(|g| g.eop_predicted).count()));
@@ -426,25 +452,26 @@ pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSu
     }
 
     let (lo, hi) = input.day.iter().flatten().fold((i64::MAX, i64::MIN), |(a, b), d| (a.min(*d), b.max(*d)));
-    prov.add_input("observations", &lp.input_path, &if lo <= hi { format!("arrival MJD {lo} … {hi}") } else { String::new() })?;
-    for (role, p, cov) in &lp.inputs {
-        prov.add_input(role, p, cov)?;
+    prov.set("input.observations.0.bytes", &std::fs::metadata(input_path).map(|m| m.len()).unwrap_or(0).to_string());
+    if lo <= hi {
+        prov.set("input.observations.0.coverage", &format!("arrival MJD {lo} … {hi}"));
     }
-    prov.set("constants.ephemeris", &lp.constants.ephemeris.name);
-    for b in &lp.ctx.shapiro {
-        prov.set(&format!("constants.gm_m3_s2.{}", b.name), &format!("{:e}", b.gm_m3_s2));
-    }
-    prov.set("constants.ppn_gamma", &format!("{}", lp.ctx.ppn_gamma));
-    prov.set("constants.dispersion_k_s_mhz2_cm3_pc", &format!("{DISPERSION_K_S_MHZ2_CM3_PC:e} (1/2.41e-4)"));
-    prov.set("constants.c_m_s", "299792458");
     prov.set("residuals.count", &stats.count.to_string());
     prov.set("residuals.weighted_rms_s", &format!("{:e}", stats.weighted_rms_s));
     prov.set("residuals.chi2", &format!("{:e}", stats.chi2));
     prov.set("residuals.weighted_mean_removed_s", &format!("{offset:e}"));
     prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
     let metadata = prov.finish();
-    write_parquet(&mut out, &lp.output_path, &metadata)?;
-    write_parquet(&mut rejects, &rejects_path(&lp.output_path), &metadata)?;
+    // Rejects first, output last: an existing output marks a complete partition.
+    write_parquet(&mut rejects, &rejects_path(output_path), &metadata)?;
+    write_parquet(&mut out, output_path, &metadata)?;
+    if plots {
+        let times: Vec<f64> = bat.iter().map(|(d, f)| *d as f64 + f).collect();
+        let sites: Vec<String> = results.iter().zip(&input.site).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.clone().unwrap_or_default()).collect();
+        let groups = crate::plots::group(&sites, &times, &residual.iter().map(|r| r * 1e6).collect::<Vec<_>>(), &sigma_s.iter().map(|s| s * 1e6).collect::<Vec<_>>());
+        summary.plots = crate::plots::residual_plots(output_path, "residuals", "pulsar timing residuals", "barycentric arrival time (MJD, TDB)", "residual (µs)", &groups)
+            .map_err(|message| PipelineError::Invalid { path: output_path.into(), message })?;
+    }
     Ok(summary)
 }
 

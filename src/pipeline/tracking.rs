@@ -172,6 +172,7 @@ pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<Loade
         field,
         troposphere,
         chunk_rows: super::DEFAULT_CHUNK_ROWS,
+        progress: None,
     };
     Ok(LoadedTracking {
         ctx,
@@ -261,15 +262,38 @@ pub fn compute_tracking(lt: &mut LoadedTracking, input: &TrackingInput, check_va
     out
 }
 
-/// Runs a tracking pipeline.
+/// Runs a tracking pipeline (one input file, or every partition of a
+/// folder or glob, skipping partitions whose outputs are up to date).
 pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
-    let mut prov = Provenance::start(file);
     let mut lt = load_tracking(file, opts.output.as_deref())?;
     lt.ctx.chunk_rows = opts.chunk_rows;
-    let df = read_parquet(&lt.input_path)?;
-    let input = read_tracking_input(&df, &lt.input_path)?;
-    check_unique_ids(&input.obs_id, &lt.input_path)?;
-    let results = compute_tracking(&mut lt, &input, true);
+    lt.ctx.progress = opts.progress.clone();
+    let mut base = Provenance::start(file);
+    for (role, p, cov) in &lt.inputs {
+        base.add_input(role, p, cov)?;
+    }
+    base.set("constants.ephemeris", &lt.constants.ephemeris.name);
+    for b in &lt.ctx.shapiro {
+        base.set(&format!("constants.gm_m3_s2.{}", b.name), &format!("{:e}", b.gm_m3_s2));
+    }
+    base.set("constants.ppn_gamma", &format!("{}", lt.ctx.ppn_gamma));
+    base.set("constants.c_m_s", "299792458");
+    base.set("target.naif_id", &lt.ctx.target.to_string());
+    base.set("target.transponder_delay_s", &format!("{:e}", lt.ctx.transponder_delay_s));
+    base.set("corrections.troposphere", match &lt.ctx.troposphere {
+        Some(_) => "Saastamoinen 1972 zenith + Black & Eisner 1984 mapping",
+        None => "off",
+    });
+    let (input, output) = (lt.input_path.clone(), lt.output_path.clone());
+    super::for_each_partition(&input, &output, &base, |inp, out, prov| run_tracking_partition(&mut lt, inp, out, prov, opts.plots))
+}
+
+/// One partition of a tracking run.
+fn run_tracking_partition(lt: &mut LoadedTracking, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
+    let df = read_parquet(input_path)?;
+    let input = read_tracking_input(&df, input_path)?;
+    check_unique_ids(&input.obs_id, input_path)?;
+    let results = compute_tracking(lt, &input, true);
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<(usize, &TrackingResult)> = results.iter().enumerate().filter_map(|(i, r)| r.as_ref().ok().map(|g| (i, g))).collect();
     let residual: Vec<f64> = good.iter().map(|(i, g)| input.value[*i].unwrap_or(f64::NAN) - g.computed).collect();
@@ -296,44 +320,57 @@ pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary
         fcol("troposphere_s", good.iter().map(|(_, g)| g.troposphere_s).collect()),
     ];
     let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
-    let (mut out, mut rejects) = assemble(&df, &lt.input_path, &ok, &reasons, computed, &[])?;
-    let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), &lt.output_path, &reasons);
+    let (mut out, mut rejects) = assemble(&df, input_path, &ok, &reasons, computed, &[])?;
+    let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), output_path, &reasons);
 
-    // Per kind and station: count, weighted RMS, χ².
-    let mut groups: BTreeMap<(String, String), (Vec<f64>, Vec<f64>)> = BTreeMap::new();
-    for ((i, _), r) in good.iter().zip(&residual) {
-        let key = (input.kind[*i].clone().unwrap_or_default(), input.rx_station[*i].clone().unwrap_or_default());
+    // Per kind and station: rows, rejected, weighted RMS, χ²/N.
+    let mut groups: BTreeMap<(String, String), (Vec<f64>, Vec<f64>, usize)> = BTreeMap::new();
+    let mut k = 0;
+    for (i, r) in results.iter().enumerate() {
+        let key = (input.kind[i].clone().unwrap_or_else(|| "(null)".into()), input.rx_station[i].clone().unwrap_or_else(|| "(null)".into()));
         let e = groups.entry(key).or_default();
-        e.0.push(*r);
-        e.1.push(input.sigma[*i].unwrap_or(1.0));
+        if r.is_ok() {
+            e.0.push(residual[k]);
+            e.1.push(input.sigma[i].unwrap_or(1.0));
+            k += 1;
+        } else {
+            e.2 += 1;
+        }
     }
-    for ((kind, st), (r, s)) in &groups {
+    summary.notes.push(format!("  {:<16} {:<12} {:>7} {:>9} {:>16} {:>9}", "kind", "station", "rows", "rejected", "weighted RMS", "χ²/N"));
+    for ((kind, st), (r, s, rej)) in &groups {
         let x = residual_summary(r, s, false);
         let unit = if kind.starts_with("doppler") { "Hz" } else { "s" };
-        summary.notes.push(format!("  {kind:<16} {st:<12} {:>7} rows  weighted RMS {:>11.4e} {unit}  χ²/N {:>8.3}", x.count, x.weighted_rms_s, if x.count > 0 { x.chi2 / x.count as f64 } else { 0.0 }));
+        summary.notes.push(format!("  {kind:<16} {st:<12} {:>7} {:>9} {:>13.4e} {unit:<2} {:>9.3}", x.count, rej, x.weighted_rms_s, if x.count > 0 { x.chi2 / x.count as f64 } else { 0.0 }));
     }
 
     let (lo, hi) = input.day.iter().flatten().fold((i64::MAX, i64::MIN), |(a, b), d| (a.min(*d), b.max(*d)));
-    prov.add_input("observations", &lt.input_path, &if lo <= hi { format!("reception MJD {lo} … {hi}") } else { String::new() })?;
-    for (role, p, cov) in &lt.inputs {
-        prov.add_input(role, p, cov)?;
+    prov.set("input.observations.0.bytes", &std::fs::metadata(input_path).map(|m| m.len()).unwrap_or(0).to_string());
+    if lo <= hi {
+        prov.set("input.observations.0.coverage", &format!("reception MJD {lo} … {hi}"));
     }
-    prov.set("constants.ephemeris", &lt.constants.ephemeris.name);
-    for b in &lt.ctx.shapiro {
-        prov.set(&format!("constants.gm_m3_s2.{}", b.name), &format!("{:e}", b.gm_m3_s2));
-    }
-    prov.set("constants.ppn_gamma", &format!("{}", lt.ctx.ppn_gamma));
-    prov.set("constants.c_m_s", "299792458");
-    prov.set("target.naif_id", &lt.ctx.target.to_string());
-    prov.set("target.transponder_delay_s", &format!("{:e}", lt.ctx.transponder_delay_s));
-    prov.set("corrections.troposphere", match &lt.ctx.troposphere {
-        Some(_) => "Saastamoinen 1972 zenith + Black & Eisner 1984 mapping",
-        None => "off",
-    });
     prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
     let metadata = prov.finish();
-    write_parquet(&mut out, &lt.output_path, &metadata)?;
-    write_parquet(&mut rejects, &rejects_path(&lt.output_path), &metadata)?;
+    write_parquet(&mut rejects, &rejects_path(output_path), &metadata)?;
+    write_parquet(&mut out, output_path, &metadata)?;
+    if plots {
+        // One plot per observable kind, per station, in natural units.
+        let mut kinds: Vec<String> = good.iter().map(|(i, _)| input.kind[*i].clone().unwrap_or_default()).collect();
+        kinds.sort();
+        kinds.dedup();
+        for kind in kinds {
+            let sel: Vec<usize> = (0..good.len()).filter(|j| input.kind[good[*j].0].as_deref() == Some(kind.as_str())).collect();
+            let (scale, unit) = if kind.starts_with("doppler") { (1e3, "mHz") } else { (1e9, "ns") };
+            let labels: Vec<String> = sel.iter().map(|j| input.rx_station[good[*j].0].clone().unwrap_or_default()).collect();
+            let t: Vec<f64> = sel.iter().map(|j| input.day[good[*j].0].unwrap_or(0) as f64 + input.frac[good[*j].0].unwrap_or(0.0)).collect();
+            let y: Vec<f64> = sel.iter().map(|j| residual[*j] * scale).collect();
+            let sg: Vec<f64> = sel.iter().map(|j| input.sigma[good[*j].0].unwrap_or(0.0) * scale).collect();
+            let groups = crate::plots::group(&labels, &t, &y, &sg);
+            let written = crate::plots::residual_plots(output_path, &format!("residuals_{kind}"), &format!("{kind} residuals"), "reception time (MJD, UTC)", &format!("residual ({unit})"), &groups)
+                .map_err(|message| PipelineError::Invalid { path: output_path.into(), message })?;
+            summary.plots.extend(written);
+        }
+    }
     Ok(summary)
 }
 

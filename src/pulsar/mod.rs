@@ -92,6 +92,8 @@ pub struct PulsarContext {
     pub ppn_gamma: f64,
     /// Rows per parallel work unit (results do not depend on it).
     pub chunk_rows: usize,
+    /// Rows processed so far, for progress displays.
+    pub progress: Option<std::sync::Arc<std::sync::atomic::AtomicUsize>>,
 }
 
 /// One arrival time to process.
@@ -219,7 +221,15 @@ impl PulsarContext {
     /// Processes a batch in parallel over fixed chunks; results are in input
     /// order and independent of the thread count.
     pub fn process_batch(&self, rows: &[Arrival]) -> Vec<Result<ArrivalResult, String>> {
-        rows.par_chunks(self.chunk_rows.max(1)).flat_map_iter(|c| c.iter().map(|a| self.process(a))).collect()
+        rows.par_chunks(self.chunk_rows.max(1))
+            .flat_map_iter(|c| {
+                let out: Vec<_> = c.iter().map(|a| self.process(a)).collect();
+                if let Some(p) = &self.progress {
+                    p.fetch_add(c.len(), std::sync::atomic::Ordering::Relaxed);
+                }
+                out
+            })
+            .collect()
     }
 
     /// The site arrival time (in the input's time scale) at which the model

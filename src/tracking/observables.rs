@@ -79,6 +79,8 @@ pub struct TrackingContext {
     pub troposphere: Option<Troposphere>,
     /// Rows per parallel work unit.
     pub chunk_rows: usize,
+    /// Rows processed so far, for progress displays.
+    pub progress: Option<std::sync::Arc<std::sync::atomic::AtomicUsize>>,
 }
 
 /// Opt-in tropospheric correction: surface meteorology per station, or the
@@ -313,7 +315,15 @@ impl TrackingContext {
     /// Computes a batch in parallel over fixed chunks, in input order.
     pub fn compute_batch(&self, rows: &[Measurement]) -> Vec<Result<TrackingResult, String>> {
         use rayon::prelude::*;
-        rows.par_chunks(self.chunk_rows.max(1)).flat_map_iter(|c| c.iter().map(|m| self.compute(m))).collect()
+        rows.par_chunks(self.chunk_rows.max(1))
+            .flat_map_iter(|c| {
+                let out: Vec<_> = c.iter().map(|m| self.compute(m)).collect();
+                if let Some(p) = &self.progress {
+                    p.fetch_add(c.len(), std::sync::atomic::Ordering::Relaxed);
+                }
+                out
+            })
+            .collect()
     }
 }
 

@@ -1,0 +1,287 @@
+//! Preflight: read a pipeline and its inputs without computing residuals and
+//! report everything that would fail, before a long run.
+//!
+//! Levels: `ok` and `note` (information, e.g. predicted EOP in use),
+//! `problem` (some rows would be rejected: unknown stations, epochs outside
+//! a kernel, EOP, leap-second or clock-table coverage) and `unusable` (the
+//! run would stop: unreadable pipeline or inputs, schema errors, duplicate
+//! ids). Exit codes: 0 clean, 1 problems, 2 unusable.
+
+use std::collections::{BTreeMap, BTreeSet};
+use std::path::Path;
+
+use super::{PipelineFile, resolve_inputs};
+use crate::ephemeris::{Ephemeris, TdbSeconds, body_name};
+use crate::earth::{EarthModel, StationCatalog};
+use crate::io::read_parquet;
+
+/// Severity of a finding.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
+pub enum Level {
+    Ok,
+    Note,
+    Problem,
+    Unusable,
+}
+
+/// One line of a preflight report.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Finding {
+    pub level: Level,
+    pub text: String,
+}
+
+/// A preflight report.
+#[derive(Clone, Debug, Default)]
+pub struct Preflight {
+    pub findings: Vec<Finding>,
+}
+
+impl Preflight {
+    fn add(&mut self, level: Level, text: impl Into<String>) {
+        self.findings.push(Finding { level, text: text.into() });
+    }
+
+    /// The worst level found.
+    pub fn worst(&self) -> Level {
+        self.findings.iter().map(|f| f.level).max().unwrap_or(Level::Ok)
+    }
+
+    /// 0 clean, 1 problems, 2 unusable.
+    pub fn exit_code(&self) -> u8 {
+        match self.worst() {
+            Level::Ok | Level::Note => 0,
+            Level::Problem => 1,
+            Level::Unusable => 2,
+        }
+    }
+
+    /// The report, one finding a line.
+    pub fn render(&self) -> String {
+        let mut s = String::new();
+        for f in &self.findings {
+            let tag = match f.level {
+                Level::Ok => "ok      ",
+                Level::Note => "note    ",
+                Level::Problem => "PROBLEM ",
+                Level::Unusable => "UNUSABLE",
+            };
+            s.push_str(&format!("{tag} {}\n", f.text));
+        }
+        s
+    }
+}
+
+/// Span of an input: whole days and exact first/last epochs (MJD, UTC).
+struct Span {
+    lo: i64,
+    hi: i64,
+    first_mjd: f64,
+    last_mjd: f64,
+    rows: usize,
+}
+
+fn span(days: &[Option<i64>], fracs: &[Option<f64>]) -> Option<Span> {
+    let v: Vec<f64> = days.iter().zip(fracs).filter_map(|(d, f)| d.map(|d| d as f64 + f.filter(|x| x.is_finite()).unwrap_or(0.0))).collect();
+    let d: Vec<i64> = days.iter().flatten().copied().collect();
+    Some(Span {
+        lo: *d.iter().min()?,
+        hi: *d.iter().max()?,
+        first_mjd: v.iter().copied().fold(f64::INFINITY, f64::min),
+        last_mjd: v.iter().copied().fold(f64::NEG_INFINITY, f64::max),
+        rows: days.len(),
+    })
+}
+
+fn check_coverage(p: &mut Preflight, eph: &Ephemeris, bodies: &[i32], s: &Span) {
+    // At the first and last observation (TDB ≈ UTC + 69.184 s; the light
+    // time to a spacecraft reaches back further, checked row by row in the run).
+    let mut all_ok = true;
+    for &b in bodies {
+        for (label, mjd) in [("first", s.first_mjd), ("last", s.last_mjd)] {
+            let secs = (mjd - 51_544.5) * 86_400.0 + 69.184;
+            let t = TdbSeconds::new(secs.floor() as i64, secs - secs.floor());
+            if let Err(e) = eph.state_ssb(b, &t) {
+                all_ok = false;
+                p.add(Level::Problem, format!("{} ({b}) not covered at the {label} observation (MJD {mjd:.6}): {e}", body_name(b)));
+            }
+        }
+    }
+    if all_ok {
+        p.add(Level::Ok, format!("kernels cover bodies {bodies:?} over the observations"));
+    }
+}
+
+fn check_earth(p: &mut Preflight, earth: &EarthModel, s: &Span, stations_days: &[i64]) {
+    let (a, b) = earth.eop.span_mjd();
+    if s.lo < a || s.hi + 1 > b {
+        p.add(Level::Problem, format!("EOP table {} covers MJD {a} … {b}, observations span MJD {} … {}", earth.eop.path().display(), s.lo, s.hi));
+    } else {
+        p.add(Level::Ok, format!("EOP table {} covers MJD {a} … {b}", earth.eop.path().display()));
+    }
+    if let Some(pred) = earth.eop.first_predicted_mjd() {
+        let n = stations_days.iter().filter(|d| **d + 1 >= pred).count();
+        if n > 0 {
+            p.add(Level::Note, format!("{n} rows fall where the EOP values are PREDICTIONS (from MJD {pred}); rerun with newer EOP for final values"));
+        }
+    }
+    let leaps = earth.time.leap_seconds();
+    if s.hi >= leaps.window_mjd() {
+        p.add(Level::Problem, format!("leap-second table ({}) cannot answer UTC on or after MJD {} (expires MJD {}); observations reach MJD {}", leaps.source_name(), leaps.window_mjd(), leaps.expires_mjd(), s.hi));
+    } else {
+        p.add(Level::Ok, format!("leap-second table valid until MJD {} (expires MJD {})", leaps.window_mjd(), leaps.expires_mjd()));
+    }
+}
+
+fn unknown_codes(p: &mut Preflight, cat: &StationCatalog, what: &str, codes: &[Option<String>]) {
+    let mut unknown: BTreeMap<&str, usize> = BTreeMap::new();
+    for c in codes.iter().flatten() {
+        if !c.is_empty() && cat.get(c).is_err() {
+            *unknown.entry(c.as_str()).or_default() += 1;
+        }
+    }
+    if unknown.is_empty() {
+        p.add(Level::Ok, format!("every {what} is in the station catalogue"));
+    } else {
+        let list: Vec<String> = unknown.iter().map(|(c, n)| format!("{c} ({n} rows)")).collect();
+        p.add(Level::Problem, format!("unknown {what}: {}", list.join(", ")));
+    }
+}
+
+/// Preflight of a pipeline file. Never fails: every failure is a finding.
+pub fn preflight(path: &Path) -> Preflight {
+    let mut p = Preflight::default();
+    let file = match PipelineFile::read(path) {
+        Ok(f) => f,
+        Err(e) => {
+            p.add(Level::Unusable, e.to_string());
+            return p;
+        }
+    };
+    p.add(Level::Ok, format!("pipeline {} (kind {})", path.display(), file.kind));
+    match file.kind.as_str() {
+        "pulsar" => preflight_pulsar(&file, &mut p),
+        "tracking" => preflight_tracking(&file, &mut p),
+        _ => {
+            if let Err(e) = file.parse::<super::TimescalesPipeline>() {
+                p.add(Level::Unusable, e.to_string());
+            }
+        }
+    }
+    p
+}
+
+fn preflight_pulsar(file: &PipelineFile, p: &mut Preflight) {
+    let lp = match super::pulsar::load_pulsar(file, None) {
+        Ok(lp) => lp,
+        Err(e) => return p.add(Level::Unusable, e.to_string()),
+    };
+    p.add(Level::Ok, format!("kernels, EOP, stations{} loaded", if lp.ctx.clocks.is_empty() { "" } else { ", clock tables" }));
+    let files = match resolve_inputs(&lp.input_path) {
+        Ok((f, _)) => f,
+        Err(e) => return p.add(Level::Unusable, e.to_string()),
+    };
+    let mut bodies = vec![399];
+    bodies.extend(lp.ctx.shapiro.iter().map(|b| b.naif_id));
+    for f in files {
+        let df = match read_parquet(&f) {
+            Ok(df) => df,
+            Err(e) => {
+                p.add(Level::Unusable, e.to_string());
+                continue;
+            }
+        };
+        let input = match super::pulsar::read_pulsar_input(&df, &f) {
+            Ok(i) => i,
+            Err(e) => {
+                p.add(Level::Unusable, e.to_string());
+                continue;
+            }
+        };
+        if let Err(e) = super::check_unique_ids(&input.obs_id, &f) {
+            p.add(Level::Unusable, e.to_string());
+            continue;
+        }
+        let Some(s) = span(&input.day, &input.frac) else {
+            p.add(Level::Note, format!("{}: no rows", f.display()));
+            continue;
+        };
+        p.add(Level::Ok, format!("{}: {} rows, arrival MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
+        unknown_codes(p, &lp.ctx.stations, "site", &input.site);
+        check_coverage(p, &lp.ctx.ephemeris, &bodies, &s);
+        let days: Vec<i64> = input.day.iter().flatten().copied().collect();
+        check_earth(p, &lp.ctx.earth, &s, &days);
+        if lp.ctx.input_is_site_clock {
+            let mut per_site: BTreeMap<&str, (i64, i64)> = BTreeMap::new();
+            for (site, d) in input.site.iter().zip(&input.day) {
+                if let (Some(site), Some(d)) = (site, d) {
+                    let e = per_site.entry(site.as_str()).or_insert((*d, *d));
+                    e.0 = e.0.min(*d);
+                    e.1 = e.1.max(*d);
+                }
+            }
+            for (site, (lo, hi)) in per_site {
+                match lp.ctx.clocks.get(site) {
+                    None => p.add(Level::Problem, format!("site {site} has no clock chain ([clocks] sites) but the input is in site-clock time")),
+                    Some(chain) => {
+                        for t in chain {
+                            let (a, b) = t.span_mjd();
+                            if (lo as f64) < a || (hi as f64 + 1.0) > b {
+                                let level = if lp.ctx.allow_clock_extrapolation { Level::Note } else { Level::Problem };
+                                p.add(level, format!("clock table {} covers MJD {a} … {b}; site {site} observes MJD {lo} … {hi}{}", t.path.display(), if lp.ctx.allow_clock_extrapolation { " (end values will be held and rows flagged)" } else { "" }));
+                            }
+                        }
+                    }
+                }
+            }
+        }
+    }
+}
+
+fn preflight_tracking(file: &PipelineFile, p: &mut Preflight) {
+    let lt = match super::tracking::load_tracking(file, None) {
+        Ok(lt) => lt,
+        Err(e) => return p.add(Level::Unusable, e.to_string()),
+    };
+    p.add(Level::Ok, "kernels, EOP, stations loaded");
+    let files = match resolve_inputs(&lt.input_path) {
+        Ok((f, _)) => f,
+        Err(e) => return p.add(Level::Unusable, e.to_string()),
+    };
+    let mut bodies = vec![399, lt.ctx.target];
+    bodies.extend(lt.ctx.shapiro.iter().map(|b| b.naif_id));
+    for f in files {
+        let df = match read_parquet(&f) {
+            Ok(df) => df,
+            Err(e) => {
+                p.add(Level::Unusable, e.to_string());
+                continue;
+            }
+        };
+        let input = match super::tracking::read_tracking_input(&df, &f) {
+            Ok(i) => i,
+            Err(e) => {
+                p.add(Level::Unusable, e.to_string());
+                continue;
+            }
+        };
+        if let Err(e) = super::check_unique_ids(&input.obs_id, &f) {
+            p.add(Level::Unusable, e.to_string());
+            continue;
+        }
+        let Some(s) = span(&input.day, &input.frac) else {
+            p.add(Level::Note, format!("{}: no rows", f.display()));
+            continue;
+        };
+        p.add(Level::Ok, format!("{}: {} rows, reception MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
+        let bad_kinds: BTreeSet<&str> = input.kind.iter().flatten().filter(|k| k.parse::<crate::tracking::observables::Kind>().is_err()).map(String::as_str).collect();
+        if !bad_kinds.is_empty() {
+            p.add(Level::Problem, format!("unknown kinds: {}", bad_kinds.into_iter().collect::<Vec<_>>().join(", ")));
+        }
+        unknown_codes(p, &lt.ctx.stations, "rx_station", &input.rx_station);
+        unknown_codes(p, &lt.ctx.stations, "tx_station", &input.tx_station);
+        check_coverage(p, &lt.ctx.ephemeris, &bodies, &s);
+        let days: Vec<i64> = input.day.iter().flatten().copied().collect();
+        check_earth(p, &lt.ctx.earth, &s, &days);
+    }
+}
