@@ -448,3 +448,19 @@ pub fn input_rows(pipeline: &Path) -> Option<usize> {
     }
     Some(n)
 }
+
+/// Maps `f` over `rows` in parallel over fixed chunks of `chunk_rows`,
+/// keeping input order (so results do not depend on the thread count), and
+/// adds each finished chunk's size to `progress`.
+pub fn par_map_chunks<T: Sync, R: Send>(rows: &[T], chunk_rows: usize, progress: Option<&std::sync::atomic::AtomicUsize>, f: impl Fn(&T) -> R + Sync) -> Vec<R> {
+    use rayon::prelude::*;
+    rows.par_chunks(chunk_rows.max(1))
+        .flat_map_iter(|c| {
+            let out: Vec<R> = c.iter().map(&f).collect();
+            if let Some(p) = progress {
+                p.fetch_add(c.len(), std::sync::atomic::Ordering::Relaxed);
+            }
+            out
+        })
+        .collect()
+}

@@ -148,6 +148,41 @@ fn unknown_codes(p: &mut Preflight, cat: &StationCatalog, what: &str, codes: &[O
     }
 }
 
+/// Reads every input partition, checks schema and ids, and hands the usable
+/// ones with their span to `each`.
+fn each_partition<I>(
+    p: &mut Preflight,
+    input: &Path,
+    read: impl Fn(&polars::prelude::DataFrame, &Path) -> Result<I, super::PipelineError>,
+    ids_days_fracs: impl Fn(&I) -> (&[Option<String>], &[Option<i64>], &[Option<f64>]),
+    mut each: impl FnMut(&mut Preflight, &Path, &I, &Span),
+) {
+    let files = match resolve_inputs(input) {
+        Ok((f, _)) => f,
+        Err(e) => return p.add(Level::Unusable, e.to_string()),
+    };
+    for f in files {
+        let parsed = read_parquet(&f).map_err(super::PipelineError::from).and_then(|df| read(&df, &f));
+        let input = match parsed {
+            Ok(i) => i,
+            Err(e) => {
+                p.add(Level::Unusable, e.to_string());
+                continue;
+            }
+        };
+        let (ids, days, fracs) = ids_days_fracs(&input);
+        if let Err(e) = super::check_unique_ids(ids, &f) {
+            p.add(Level::Unusable, e.to_string());
+            continue;
+        }
+        let Some(s) = span(days, fracs) else {
+            p.add(Level::Note, format!("{}: no rows", f.display()));
+            continue;
+        };
+        each(p, &f, &input, &s);
+    }
+}
+
 /// Preflight of a pipeline file. Never fails: every failure is a finding.
 pub fn preflight(path: &Path) -> Preflight {
     let mut p = Preflight::default();
@@ -177,35 +212,9 @@ fn preflight_pulsar(file: &PipelineFile, p: &mut Preflight) {
         Err(e) => return p.add(Level::Unusable, e.to_string()),
     };
     p.add(Level::Ok, format!("kernels, EOP, stations{} loaded", if lp.ctx.clocks.is_empty() { "" } else { ", clock tables" }));
-    let files = match resolve_inputs(&lp.input_path) {
-        Ok((f, _)) => f,
-        Err(e) => return p.add(Level::Unusable, e.to_string()),
-    };
     let mut bodies = vec![399];
     bodies.extend(lp.ctx.shapiro.iter().map(|b| b.naif_id));
-    for f in files {
-        let df = match read_parquet(&f) {
-            Ok(df) => df,
-            Err(e) => {
-                p.add(Level::Unusable, e.to_string());
-                continue;
-            }
-        };
-        let input = match super::pulsar::read_pulsar_input(&df, &f) {
-            Ok(i) => i,
-            Err(e) => {
-                p.add(Level::Unusable, e.to_string());
-                continue;
-            }
-        };
-        if let Err(e) = super::check_unique_ids(&input.obs_id, &f) {
-            p.add(Level::Unusable, e.to_string());
-            continue;
-        }
-        let Some(s) = span(&input.day, &input.frac) else {
-            p.add(Level::Note, format!("{}: no rows", f.display()));
-            continue;
-        };
+    each_partition(p, &lp.input_path, super::pulsar::read_pulsar_input, |i| (&i.obs_id, &i.day, &i.frac), |p, f, input, s| {
         p.add(Level::Ok, format!("{}: {} rows, arrival MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
         unknown_codes(p, &lp.ctx.stations, "site", &input.site);
         check_coverage(p, &lp.ctx.ephemeris, &bodies, &s);
@@ -235,7 +244,7 @@ fn preflight_pulsar(file: &PipelineFile, p: &mut Preflight) {
                 }
             }
         }
-    }
+    });
 }
 
 fn preflight_tracking(file: &PipelineFile, p: &mut Preflight) {
@@ -244,35 +253,9 @@ fn preflight_tracking(file: &PipelineFile, p: &mut Preflight) {
         Err(e) => return p.add(Level::Unusable, e.to_string()),
     };
     p.add(Level::Ok, "kernels, EOP, stations loaded");
-    let files = match resolve_inputs(&lt.input_path) {
-        Ok((f, _)) => f,
-        Err(e) => return p.add(Level::Unusable, e.to_string()),
-    };
     let mut bodies = vec![399, lt.ctx.target];
     bodies.extend(lt.ctx.shapiro.iter().map(|b| b.naif_id));
-    for f in files {
-        let df = match read_parquet(&f) {
-            Ok(df) => df,
-            Err(e) => {
-                p.add(Level::Unusable, e.to_string());
-                continue;
-            }
-        };
-        let input = match super::tracking::read_tracking_input(&df, &f) {
-            Ok(i) => i,
-            Err(e) => {
-                p.add(Level::Unusable, e.to_string());
-                continue;
-            }
-        };
-        if let Err(e) = super::check_unique_ids(&input.obs_id, &f) {
-            p.add(Level::Unusable, e.to_string());
-            continue;
-        }
-        let Some(s) = span(&input.day, &input.frac) else {
-            p.add(Level::Note, format!("{}: no rows", f.display()));
-            continue;
-        };
+    each_partition(p, &lt.input_path, super::tracking::read_tracking_input, |i| (&i.obs_id, &i.day, &i.frac), |p, f, input, s| {
         p.add(Level::Ok, format!("{}: {} rows, reception MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
         let bad_kinds: BTreeSet<&str> = input.kind.iter().flatten().filter(|k| k.parse::<crate::tracking::observables::Kind>().is_err()).map(String::as_str).collect();
         if !bad_kinds.is_empty() {
@@ -283,5 +266,5 @@ fn preflight_tracking(file: &PipelineFile, p: &mut Preflight) {
         check_coverage(p, &lt.ctx.ephemeris, &bodies, &s);
         let days: Vec<i64> = input.day.iter().flatten().copied().collect();
         check_earth(p, &lt.ctx.earth, &s, &days);
-    }
+    });
 }

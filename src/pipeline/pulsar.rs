@@ -163,35 +163,7 @@ pub fn load_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedP
         "site" => true,
         other => return Err(invalid(format!("[input] time_scale = '{other}': use \"utc\" or \"site\""))),
     };
-    let mut inputs: Vec<(String, PathBuf, String)> = Vec::new();
-    let (time, leap_path) = load_time(file, cfg.earth.leap_seconds.as_deref())?;
-    if let Some(p) = leap_path {
-        inputs.push(("leap_seconds".into(), p, super::leap_coverage(time.leap_seconds())));
-    }
-    let kernels: Vec<PathBuf> = cfg.ephemeris.kernels.iter().map(|k| file.resolve(k)).collect();
-    if kernels.is_empty() {
-        return Err(invalid("[ephemeris] kernels is empty".into()));
-    }
-    let ephemeris = Ephemeris::load(&kernels).map_err(|e| invalid(format!("[ephemeris] {e}")))?;
-    for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
-        inputs.push(("kernel".into(), k.clone(), super::kernel_coverage(loaded)));
-    }
-    let constants = match &cfg.ephemeris.constants {
-        Some(p) => {
-            let p = file.resolve(p);
-            inputs.push(("constants".into(), p.clone(), String::new()));
-            Constants::from_file(&p).map_err(|e| invalid(e.to_string()))?
-        }
-        None => Constants::builtin(),
-    };
-    let eop_path = file.resolve(&cfg.earth.eop);
-    let eop = EopTable::from_file(&eop_path).map_err(|e| invalid(format!("[earth] {e}")))?;
-    inputs.push(("eop".into(), eop_path, super::eop_coverage(&eop)));
-    let mut earth = EarthModel::new(time, eop);
-    earth.pole_offsets = cfg.earth.pole_offsets;
-    let stations_path = file.resolve(&cfg.stations.catalog);
-    let stations = StationCatalog::from_file(&stations_path).map_err(|e| invalid(format!("[stations] {e}")))?;
-    inputs.push(("stations".into(), stations_path, format!("{} stations", stations.stations().len())));
+    let SharedInputs { ephemeris, constants, earth, stations, mut inputs } = load_shared(file, &cfg.ephemeris, &cfg.earth, &cfg.stations)?;
     let mut clocks = HashMap::new();
     for (site, chain) in &cfg.clocks.sites {
         stations.get(site).map_err(|e| invalid(format!("[clocks] sites: {e}")))?;
@@ -272,6 +244,51 @@ pub fn load_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedP
         inputs,
         constants,
     })
+}
+
+/// The inputs every pipeline kind with geometry shares, loaded once.
+pub struct SharedInputs {
+    pub ephemeris: Ephemeris,
+    pub constants: Constants,
+    pub earth: EarthModel,
+    pub stations: StationCatalog,
+    /// Role, path and coverage of each file read, for provenance.
+    pub inputs: Vec<(String, PathBuf, String)>,
+}
+
+/// Loads `[ephemeris]`, `[earth]` and `[stations]` of a pipeline.
+pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg, st: &StationsCfg) -> Result<SharedInputs, PipelineError> {
+    let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
+    let mut inputs: Vec<(String, PathBuf, String)> = Vec::new();
+    let (time, leap_path) = load_time(file, earth_cfg.leap_seconds.as_deref())?;
+    if let Some(p) = leap_path {
+        inputs.push(("leap_seconds".into(), p, super::leap_coverage(time.leap_seconds())));
+    }
+    let kernels: Vec<PathBuf> = eph.kernels.iter().map(|k| file.resolve(k)).collect();
+    if kernels.is_empty() {
+        return Err(invalid("[ephemeris] kernels is empty".into()));
+    }
+    let ephemeris = Ephemeris::load(&kernels).map_err(|e| invalid(format!("[ephemeris] {e}")))?;
+    for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
+        inputs.push(("kernel".into(), k.clone(), super::kernel_coverage(loaded)));
+    }
+    let constants = match &eph.constants {
+        Some(p) => {
+            let p = file.resolve(p);
+            inputs.push(("constants".into(), p.clone(), String::new()));
+            Constants::from_file(&p).map_err(|e| invalid(e.to_string()))?
+        }
+        None => Constants::builtin(),
+    };
+    let eop_path = file.resolve(&earth_cfg.eop);
+    let eop = EopTable::from_file(&eop_path).map_err(|e| invalid(format!("[earth] {e}")))?;
+    inputs.push(("eop".into(), eop_path, super::eop_coverage(&eop)));
+    let mut earth = EarthModel::new(time, eop);
+    earth.pole_offsets = earth_cfg.pole_offsets;
+    let stations_path = file.resolve(&st.catalog);
+    let stations = StationCatalog::from_file(&stations_path).map_err(|e| invalid(format!("[stations] {e}")))?;
+    inputs.push(("stations".into(), stations_path, format!("{} stations", stations.stations().len())));
+    Ok(SharedInputs { ephemeris, constants, earth, stations, inputs })
 }
 
 /// Time scales from an optional leap-second file of a pipeline.

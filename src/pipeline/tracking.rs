@@ -8,12 +8,11 @@ use std::path::{Path, PathBuf};
 use polars::prelude::*;
 use serde::Deserialize;
 
-use super::pulsar::{EarthCfg, EphemerisCfg, StationsCfg, load_time};
+use super::pulsar::{EarthCfg, EphemerisCfg, SharedInputs, StationsCfg, load_shared};
 use super::{PipelineError, PipelineFile, Provenance, RunOptions, RunSummary, assemble, check_unique_ids, rejects_path};
 use crate::constants::Constants;
 use crate::delays::shapiro_bodies;
-use crate::earth::{EarthModel, EopTable, StationCatalog};
-use crate::ephemeris::{Ephemeris, body_id};
+use crate::ephemeris::body_id;
 use crate::io::{Columns, read_parquet, write_parquet};
 use crate::pulsar::residual_summary;
 use crate::tracking::observables::{Kind, Measurement, TrackingContext, TrackingResult};
@@ -95,35 +94,7 @@ pub struct LoadedTracking {
 pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedTracking, PipelineError> {
     let cfg: TrackingPipeline = file.parse()?;
     let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
-    let mut inputs = Vec::new();
-    let (time, leap_path) = load_time(file, cfg.earth.leap_seconds.as_deref())?;
-    if let Some(p) = leap_path {
-        inputs.push(("leap_seconds".to_string(), p, super::leap_coverage(time.leap_seconds())));
-    }
-    let kernels: Vec<PathBuf> = cfg.ephemeris.kernels.iter().map(|k| file.resolve(k)).collect();
-    if kernels.is_empty() {
-        return Err(invalid("[ephemeris] kernels is empty".into()));
-    }
-    let mut ephemeris = Ephemeris::load(&kernels).map_err(|e| invalid(format!("[ephemeris] {e}")))?;
-    for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
-        inputs.push(("kernel".into(), k.clone(), super::kernel_coverage(loaded)));
-    }
-    let constants = match &cfg.ephemeris.constants {
-        Some(p) => {
-            let p = file.resolve(p);
-            inputs.push(("constants".into(), p.clone(), String::new()));
-            Constants::from_file(&p).map_err(|e| invalid(e.to_string()))?
-        }
-        None => Constants::builtin(),
-    };
-    let eop_path = file.resolve(&cfg.earth.eop);
-    let eop = EopTable::from_file(&eop_path).map_err(|e| invalid(format!("[earth] {e}")))?;
-    inputs.push(("eop".into(), eop_path, super::eop_coverage(&eop)));
-    let mut earth = EarthModel::new(time, eop);
-    earth.pole_offsets = cfg.earth.pole_offsets;
-    let stations_path = file.resolve(&cfg.stations.catalog);
-    let stations = StationCatalog::from_file(&stations_path).map_err(|e| invalid(format!("[stations] {e}")))?;
-    inputs.push(("stations".into(), stations_path, format!("{} stations", stations.stations().len())));
+    let SharedInputs { mut ephemeris, constants, earth, stations, mut inputs } = load_shared(file, &cfg.ephemeris, &cfg.earth, &cfg.stations)?;
     let target = match &cfg.target.body {
         toml::Value::Integer(i) => i32::try_from(*i).map_err(|_| invalid(format!("[target] body {i} is not a NAIF id")))?,
         toml::Value::String(s) => body_id(s, &[]).ok_or_else(|| invalid(format!("[target] body '{s}' is not a known name or NAIF id")))?,

@@ -13,7 +13,6 @@ pub mod clock;
 use std::collections::HashMap;
 
 use nalgebra::Vector3;
-use rayon::prelude::*;
 
 use crate::delays::{self, Source};
 use crate::earth::{EarthModel, StationCatalog};
@@ -221,15 +220,7 @@ impl PulsarContext {
     /// Processes a batch in parallel over fixed chunks; results are in input
     /// order and independent of the thread count.
     pub fn process_batch(&self, rows: &[Arrival]) -> Vec<Result<ArrivalResult, String>> {
-        rows.par_chunks(self.chunk_rows.max(1))
-            .flat_map_iter(|c| {
-                let out: Vec<_> = c.iter().map(|a| self.process(a)).collect();
-                if let Some(p) = &self.progress {
-                    p.fetch_add(c.len(), std::sync::atomic::Ordering::Relaxed);
-                }
-                out
-            })
-            .collect()
+        crate::pipeline::par_map_chunks(rows, self.chunk_rows, self.progress.as_deref(), |a| self.process(a))
     }
 
     /// The site arrival time (in the input's time scale) at which the model

@@ -314,16 +314,7 @@ impl TrackingContext {
 
     /// Computes a batch in parallel over fixed chunks, in input order.
     pub fn compute_batch(&self, rows: &[Measurement]) -> Vec<Result<TrackingResult, String>> {
-        use rayon::prelude::*;
-        rows.par_chunks(self.chunk_rows.max(1))
-            .flat_map_iter(|c| {
-                let out: Vec<_> = c.iter().map(|m| self.compute(m)).collect();
-                if let Some(p) = &self.progress {
-                    p.fetch_add(c.len(), std::sync::atomic::Ordering::Relaxed);
-                }
-                out
-            })
-            .collect()
+        crate::pipeline::par_map_chunks(rows, self.chunk_rows, self.progress.as_deref(), |m| self.compute(m))
     }
 }
 

@@ -17,10 +17,8 @@ used: it removes aberration from the station vector, ~2 us off.)
 Reference library: astropy (version in the header).
 Regenerate: python tests/reference/bcrs_astropy.py tests/fixtures
 """
-import math
 import os
 import sys
-import tomllib
 
 import numpy as np
 import astropy
@@ -32,7 +30,6 @@ iers.conf.auto_download = False
 iers.conf.auto_max_age = None
 
 import astropy.units as u  # noqa: E402
-import erfa  # noqa: E402
 from astropy.coordinates import EarthLocation, get_body_barycentric, solar_system_ephemeris  # noqa: E402
 from astropy.time import Time  # noqa: E402
 
@@ -41,15 +38,8 @@ root = os.path.abspath(os.path.join(os.path.dirname(os.path.abspath(__file__)), 
 iers.earth_orientation_table.set(iers.IERS_A.open(os.path.join(root, "data", "finals2000A.all")))
 solar_system_ephemeris.set(os.path.join(root, "data", "de421.bsp"))
 
-stations = tomllib.load(open(os.path.join(root, "data", "demo", "stations.toml"), "rb"))["station"]
-for st in stations:
-    if "geodetic" in st:
-        g = st["geodetic"]
-        st["xyz"] = np.array(erfa.gd2gc(2, math.radians(g["lon_deg"]), math.radians(g["lat_deg"]), g["height_m"]))
-    else:
-        st["xyz"] = np.array(st["itrf_m"], dtype=float)
-    st["vel"] = np.array(st.get("velocity_m_per_yr", [0.0, 0.0, 0.0]))
-    st["epoch"] = st.get("epoch_mjd", 51544.5)
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+from erfa_geometry import stations  # noqa: E402  (same GRS80 -> ITRF conversion and plate motion)
 
 leap_days = {53735, 54831, 56108, 57203, 57753}
 rng = np.random.default_rng(1977)
