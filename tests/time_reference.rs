@@ -189,3 +189,30 @@ fn lorentz_factor_at_0_98_c() {
     assert!((g - 5.025).abs() < 1e-3, "{g}");
     assert!((g - 1.0 / (1.0f64 - 0.98 * 0.98).sqrt()).abs() < 1e-12);
 }
+
+#[test]
+fn tdb_grid_matches_the_series() {
+    // Fast path against direct path: the grid's interpolated TDB − TT against
+    // the full series at 200 000 epochs, 1900–2100 (issue: ≤ 1 ps).
+    const GRID_VS_SERIES_TOL_S: f64 = 1e-12;
+    use lapse::time::relativistic::{TDB_GRID_STEP_DAY, TdbGrid};
+    let day = 86_400 * FS_PER_S;
+    let (lo, hi) = (15_020i128 * day, 88_069i128 * day);
+    let mut max = 0.0f64;
+    for chunk in 0..20 {
+        let a = lo + (hi - lo) * chunk / 20;
+        let g = TdbGrid::new(a, a + 400 * day, TDB_GRID_STEP_DAY);
+        let mut x: u64 = 0x2545_F491_4F6C_DD1D ^ chunk as u64;
+        for _ in 0..10_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            let span_ps = (400 * day / 1000) as u64;
+            let t = a + (x % span_ps) as i128 * 1000;
+            let d = (g.at(t).unwrap() - tdb_minus_tt_geocentric_s(t)).abs();
+            max = max.max(d);
+        }
+    }
+    eprintln!("TDB grid ({TDB_GRID_STEP_DAY} d) vs series, 200 000 epochs 1900–2100: max {max:.3e} s");
+    assert!(max <= GRID_VS_SERIES_TOL_S, "{max}");
+}

@@ -94,10 +94,13 @@ impl EarthModel {
         self
     }
 
-    /// Use a grid of X, Y, s covering a UTC span (MJD).
+    /// Use grids of X, Y, s and of TDB − TT covering a UTC span (MJD): the
+    /// fast path for batches, each within its tested bound of the direct path.
     pub fn set_cip_grid(&mut self, first_mjd_utc: f64, last_mjd_utc: f64) {
         // TT − UTC < 80 s: pad by a day either side.
         self.cip = CipSource::Grid(CipGrid::new(first_mjd_utc - 1.0, last_mjd_utc + 1.0, CIP_GRID_STEP_DAY));
+        let day_fs = FS_PER_DAY as f64;
+        self.time.set_tdb_grid(((first_mjd_utc - 1.0) * day_fs) as i128, ((last_mjd_utc + 1.0) * day_fs) as i128);
     }
 
     fn cip_at(&self, tt: &Epoch) -> CipXys {
@@ -166,7 +169,7 @@ impl EarthModel {
         // the 787-term series depends on TT only, so it is evaluated once for
         // both the geocentric and the topocentric TDB (same formula and
         // rounding as TimeScales::convert).
-        let dtdb_geo_s = crate::time::relativistic::tdb_minus_tt_geocentric_s(tt.label_fs());
+        let dtdb_geo_s = self.time.tdb_minus_tt_geocentric_s(tt.label_fs());
         let tdb_at = |obs_s: f64| -> Result<Epoch, EarthError> {
             let d = seconds_to_fs(dtdb_geo_s + obs_s).ok_or_else(|| EarthError::Time {
                 context: "TT → TDB".into(),
@@ -179,7 +182,14 @@ impl EarthModel {
         let v_e = Vector3::from(earth_geo.velocity_km_s) * 1e3;
         let observer_term_s = v_e.dot(&x_gcrs) / (C_M_S * C_M_S);
         let tdb = tdb_at(observer_term_s)?;
-        let earth = if tdb == geo_tdb { earth_geo } else { eph.state_ssb(399, &TdbSeconds::from_epoch(&tdb)?)? };
+        // The Earth at the topocentric TDB: the two epochs differ by the
+        // observer term (≤ 2.1 µs), over which a linear step is exact to
+        // a·δ²/2 ≈ 1e-14 m, so the ephemeris is not evaluated again.
+        let dt_s = ratio_to_f64(tdb.label_fs() - geo_tdb.label_fs(), crate::time::femto::FS_PER_S);
+        let earth = StateKm {
+            position_km: std::array::from_fn(|i| earth_geo.position_km[i] + earth_geo.velocity_km_s[i] * dt_s),
+            velocity_km_s: earth_geo.velocity_km_s,
+        };
         let bcrs_position_m = Vector3::from(earth.position_km) * 1e3 + x_gcrs;
         let bcrs_velocity_m_s = Vector3::from(earth.velocity_km_s) * 1e3 + v_gcrs;
         Ok(StationState {

@@ -68,7 +68,10 @@ impl CipGrid {
     pub fn new(start_mjd_tt: f64, end_mjd_tt: f64, step_day: f64) -> Self {
         let s0 = (start_mjd_tt / step_day).floor() * step_day - 2.0 * step_day;
         let n = (((end_mjd_tt - s0) / step_day).ceil() as usize) + 3;
+        // Nodes are independent: computed in parallel (order kept).
+        use rayon::prelude::*;
         let nodes = (0..n)
+            .into_par_iter()
             .map(|k| {
                 let mjd = s0 + k as f64 * step_day;
                 CipXys::direct(2_400_000.5, mjd)

@@ -194,17 +194,31 @@ pub trait Ut1Source: Send + Sync + std::fmt::Debug {
 pub struct TimeScales {
     leaps: LeapSecondTable,
     ut1: Option<std::sync::Arc<dyn Ut1Source>>,
+    /// Tabulated geocentric TDB − TT for batches (fast path).
+    tdb_grid: Option<std::sync::Arc<super::relativistic::TdbGrid>>,
 }
 
 impl TimeScales {
     /// With the leap-second table built into lapse.
     pub fn builtin() -> Self {
-        Self { leaps: LeapSecondTable::builtin(), ut1: None }
+        Self { leaps: LeapSecondTable::builtin(), ut1: None, tdb_grid: None }
     }
 
     /// With a given leap-second table.
     pub fn new(leaps: LeapSecondTable) -> Self {
-        Self { leaps, ut1: None }
+        Self { leaps, ut1: None, tdb_grid: None }
+    }
+
+    /// Tabulates geocentric TDB − TT over a TT span (femtoseconds since MJD 0)
+    /// so that conversions in it use the grid ([`super::relativistic::TdbGrid`],
+    /// ≤ 2.9e-14 s from the series); epochs outside use the series.
+    pub fn set_tdb_grid(&mut self, first_tt_fs: i128, last_tt_fs: i128) {
+        self.tdb_grid = Some(std::sync::Arc::new(super::relativistic::TdbGrid::new(first_tt_fs, last_tt_fs, super::relativistic::TDB_GRID_STEP_DAY)));
+    }
+
+    /// Geocentric TDB − TT (s) at a TT epoch: the grid where set, else the series.
+    pub fn tdb_minus_tt_geocentric_s(&self, tt_fs: i128) -> f64 {
+        self.tdb_grid.as_ref().and_then(|g| g.at(tt_fs)).unwrap_or_else(|| tdb_minus_tt_geocentric_s(tt_fs))
     }
 
     /// The same converter with a UT1 source (enables UT1 conversions).
@@ -336,7 +350,7 @@ impl TimeScales {
     /// IERS Conventions 2010, ch. 10, eq. 10.9 (geocentric series plus
     /// v_E · x / c²); Fairhead & Bretagnon 1990.
     pub fn tdb_minus_tt_s(&self, tt_fs: i128, observer_s: f64) -> f64 {
-        tdb_minus_tt_geocentric_s(tt_fs) + observer_s
+        self.tdb_minus_tt_geocentric_s(tt_fs) + observer_s
     }
 
     fn tdb_fs_of_tt_fs(&self, tt_fs: i128, observer_s: f64) -> Result<i128, TimeError> {

@@ -95,6 +95,11 @@ pub fn seconds_to_fs(seconds_s: f64) -> Option<i128> {
 /// neighbours are compared exactly in integer arithmetic.
 pub fn ratio_to_f64(num_fs: i128, den_fs: i128) -> f64 {
     debug_assert!(den_fs > 0);
+    // Both operands exact in f64: IEEE division is already correctly rounded.
+    const EXACT: i128 = 1 << 53;
+    if num_fs.abs() <= EXACT && den_fs <= EXACT {
+        return num_fs as f64 / den_fs as f64;
+    }
     let guess = num_fs as f64 / den_fs as f64;
     let cands = [guess.next_down(), guess, guess.next_up()];
     let parts = cands.map(decompose);
