@@ -235,3 +235,38 @@ fn plots_are_written_and_are_real_images() {
     assert_eq!(lapse(&["run", root().join("pipelines/tracking_demo.toml").to_str().unwrap(), "--output", out2.to_str().unwrap(), "--no-plots"]).status.code(), Some(0));
     assert!(std::fs::read_dir(&d2).unwrap().flatten().all(|e| e.path().extension().is_none_or(|x| x != "png")));
 }
+
+#[test]
+fn streamed_partitions_equal_in_memory_ones() {
+    // Force streaming on the demo (threshold 100 rows, slices of 333): the
+    // output must equal the in-memory golden bit for bit, and the metadata
+    // must equal that of an in-memory run apart from the start time.
+    let d = tmpdir("stream");
+    let demo = root().join("pipelines/pulsar_demo.toml");
+    let (a, b) = (d.join("mem.parquet"), d.join("stream.parquet"));
+    assert_eq!(lapse(&["run", demo.to_str().unwrap(), "--output", a.to_str().unwrap(), "-q"]).status.code(), Some(0));
+    let o = Command::new(env!("CARGO_BIN_EXE_lapse"))
+        .args(["run", demo.to_str().unwrap(), "--output", b.to_str().unwrap(), "-q"])
+        .env("LAPSE_STREAM_ROWS", "100")
+        .env("LAPSE_STREAM_SLICE", "333")
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_eq!(data_bits(&read(&b)), data_bits(&read(&root().join("tests/golden/pulsar_demo.parquet"))));
+    assert_eq!(data_bits(&read(&d.join("stream.rejects.parquet"))), data_bits(&read(&d.join("mem.rejects.parquet"))));
+    let md = |p: &Path| -> Vec<(String, String)> { lapse::io::read_parquet_metadata(p).unwrap().into_iter().filter(|(k, _)| k != "lapse.run.started_utc").collect() };
+    assert_eq!(md(&a), md(&b));
+    assert!(d.join("stream.residuals.png").exists());
+    assert!(std::fs::read_dir(&d).unwrap().flatten().all(|e| !e.path().to_string_lossy().ends_with(".partial")));
+    // A duplicate id across slices is found.
+    let mut df = read(&root().join("data/demo/pulsar_toas.parquet"));
+    let mut ids: Vec<String> = df.column("obs_id").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
+    ids[1200] = ids[3].clone();
+    df.with_column(Column::new("obs_id".into(), ids)).unwrap();
+    let dup = d.join("dup.parquet");
+    write(&dup, &mut df);
+    let p = pulsar_pipeline(&d, &dup.display().to_string(), &d.join("dupout.parquet").display().to_string());
+    let o = Command::new(env!("CARGO_BIN_EXE_lapse")).args(["run", p.to_str().unwrap()]).env("LAPSE_STREAM_ROWS", "100").env("LAPSE_STREAM_SLICE", "333").output().unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("duplicate obs_id"), "{}", String::from_utf8_lossy(&o.stderr));
+}

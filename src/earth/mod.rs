@@ -94,6 +94,17 @@ impl EarthModel {
         self
     }
 
+    /// True when the grids already cover a UTC span (MJD).
+    pub fn grids_cover(&self, first_mjd_utc: f64, last_mjd_utc: f64) -> bool {
+        match &self.cip {
+            CipSource::Grid(g) => {
+                let (a, b) = g.span_mjd_tt();
+                a <= first_mjd_utc - 0.5 && b >= last_mjd_utc + 0.5
+            }
+            CipSource::Direct => false,
+        }
+    }
+
     /// Use grids of X, Y, s and of TDB − TT covering a UTC span (MJD): the
     /// fast path for batches, each within its tested bound of the direct path.
     pub fn set_cip_grid(&mut self, first_mjd_utc: f64, last_mjd_utc: f64) {

@@ -464,3 +464,68 @@ pub fn par_map_chunks<T: Sync, R: Send>(rows: &[T], chunk_rows: usize, progress:
         })
         .collect()
 }
+
+/// Duplicate-id detection over a table read in slices, in bounded memory:
+/// (64-bit hash, row) pairs — 12 bytes a row — sorted once at the end; equal
+/// hashes are confirmed on the strings, re-read from the file.
+pub struct IdChecker {
+    pairs: Vec<(u64, u32)>,
+    hasher: std::hash::BuildHasherDefault<std::hash::DefaultHasher>,
+}
+
+impl IdChecker {
+    pub fn new(capacity: usize) -> Self {
+        Self { pairs: Vec::with_capacity(capacity), hasher: Default::default() }
+    }
+
+    /// Records the ids of rows `first_row ..` (null ids are refused at once).
+    pub fn check(&mut self, ids: &[Option<String>], first_row: usize, path: &Path) -> Result<(), PipelineError> {
+        use std::hash::BuildHasher;
+        for (k, id) in ids.iter().enumerate() {
+            let row = first_row + k;
+            let Some(id) = id.as_deref() else {
+                return Err(IoError::Value { path: path.into(), column: "obs_id".into(), row, message: "null obs_id".into() }.into());
+            };
+            self.pairs.push((self.hasher.hash_one(id), row as u32));
+        }
+        Ok(())
+    }
+
+    /// Sorts the hashes and reports the first duplicate id, if any.
+    pub fn finish(mut self, path: &Path) -> Result<(), PipelineError> {
+        self.pairs.sort_unstable();
+        for w in self.pairs.windows(2) {
+            if w[0].0 == w[1].0 {
+                let id = |row: u32| -> Result<String, PipelineError> {
+                    let df = read_parquet_slice(path, row as usize, 1, Some(vec!["obs_id".into()]))?;
+                    Ok(crate::io::Columns { df: &df, path }.str("obs_id")?.pop().flatten().unwrap_or_default())
+                };
+                let (a, b) = (id(w[0].1)?, id(w[1].1)?);
+                if a == b {
+                    return Err(PipelineError::DuplicateId { path: path.into(), obs_id: a, first: w[0].1 as usize, second: w[1].1 as usize });
+                }
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Rows `offset .. offset + len` of a Parquet file (only `cols`, if given).
+pub fn read_parquet_slice(path: &Path, offset: usize, len: usize, cols: Option<Vec<String>>) -> Result<DataFrame, PipelineError> {
+    let f = std::fs::File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
+    match crate::io::guarded(|| ParquetReader::new(f).with_slice(Some((offset, len))).with_columns(cols).finish()) {
+        Some(Ok(df)) => Ok(df),
+        Some(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
+        None => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
+    }
+}
+
+/// Number of rows of a Parquet file from its metadata.
+pub fn parquet_rows(path: &Path) -> Result<usize, PipelineError> {
+    let f = std::fs::File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
+    match crate::io::guarded(|| ParquetReader::new(f).num_rows()) {
+        Some(Ok(n)) => Ok(n),
+        Some(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
+        None => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
+    }
+}

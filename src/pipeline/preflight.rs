@@ -13,7 +13,6 @@ use std::path::Path;
 use super::{PipelineFile, resolve_inputs};
 use crate::ephemeris::{Ephemeris, TdbSeconds, body_name};
 use crate::earth::{EarthModel, StationCatalog};
-use crate::io::read_parquet;
 
 /// Severity of a finding.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
@@ -81,16 +80,114 @@ struct Span {
     rows: usize,
 }
 
-fn span(days: &[Option<i64>], fracs: &[Option<f64>]) -> Option<Span> {
-    let v: Vec<f64> = days.iter().zip(fracs).filter_map(|(d, f)| d.map(|d| d as f64 + f.filter(|x| x.is_finite()).unwrap_or(0.0))).collect();
-    let d: Vec<i64> = days.iter().flatten().copied().collect();
-    Some(Span {
-        lo: *d.iter().min()?,
-        hi: *d.iter().max()?,
-        first_mjd: v.iter().copied().fold(f64::INFINITY, f64::min),
-        last_mjd: v.iter().copied().fold(f64::NEG_INFINITY, f64::max),
-        rows: days.len(),
-    })
+/// What preflight needs to know of an input, accumulated over slices.
+#[derive(Default)]
+struct Facts {
+    rows: usize,
+    first_mjd: f64,
+    last_mjd: f64,
+    /// Rows per MJD day.
+    days: BTreeMap<i64, usize>,
+    /// Per code of the first code column (site / rx_station): rows, first and last day.
+    codes: BTreeMap<String, (usize, i64, i64)>,
+    /// Per code of the second code column (tx_station).
+    codes2: BTreeMap<String, (usize, i64, i64)>,
+    kinds: BTreeSet<String>,
+}
+
+impl Facts {
+    fn add(&mut self, days: &[Option<i64>], fracs: &[Option<f64>], codes: &[Option<String>], codes2: Option<&[Option<String>]>, kinds: Option<&[Option<String>]>) {
+        if self.rows == 0 {
+            self.first_mjd = f64::INFINITY;
+            self.last_mjd = f64::NEG_INFINITY;
+        }
+        self.rows += days.len();
+        for (i, d) in days.iter().enumerate() {
+            let Some(d) = *d else { continue };
+            let t = d as f64 + fracs[i].filter(|x| x.is_finite()).unwrap_or(0.0);
+            self.first_mjd = self.first_mjd.min(t);
+            self.last_mjd = self.last_mjd.max(t);
+            *self.days.entry(d).or_default() += 1;
+            let note = |m: &mut BTreeMap<String, (usize, i64, i64)>, c: &Option<String>| {
+                if let Some(c) = c.as_deref().filter(|c| !c.is_empty()) {
+                    let e = m.entry(c.to_string()).or_insert((0, d, d));
+                    e.0 += 1;
+                    e.1 = e.1.min(d);
+                    e.2 = e.2.max(d);
+                }
+            };
+            note(&mut self.codes, &codes[i]);
+            if let Some(c2) = codes2 {
+                note(&mut self.codes2, &c2[i]);
+            }
+        }
+        if let Some(k) = kinds {
+            self.kinds.extend(k.iter().flatten().cloned());
+        }
+    }
+
+    fn span(&self) -> Option<Span> {
+        Some(Span { lo: *self.days.keys().next()?, hi: *self.days.keys().next_back()?, first_mjd: self.first_mjd, last_mjd: self.last_mjd, rows: self.rows })
+    }
+}
+
+/// Rows per slice when preflight reads an input.
+const PREFLIGHT_SLICE_ROWS: usize = 500_000;
+
+/// Reads every input partition in slices, checks schema and ids, and hands
+/// the accumulated facts of each usable file to `each`.
+fn each_partition<I>(
+    p: &mut Preflight,
+    input: &Path,
+    read: impl Fn(&polars::prelude::DataFrame, &Path) -> Result<I, super::PipelineError>,
+    add: impl Fn(&mut Facts, &I),
+    ids_of: impl Fn(&I) -> &[Option<String>],
+    mut each: impl FnMut(&mut Preflight, &Path, &Facts, &Span),
+) {
+    let files = match resolve_inputs(input) {
+        Ok((f, _)) => f,
+        Err(e) => return p.add(Level::Unusable, e.to_string()),
+    };
+    'files: for f in files {
+        let n = match super::parquet_rows(&f) {
+            Ok(n) => n,
+            Err(e) => {
+                p.add(Level::Unusable, e.to_string());
+                continue;
+            }
+        };
+        let mut facts = Facts::default();
+        let mut ids = super::IdChecker::new(n);
+        let mut at = 0usize;
+        loop {
+            let parsed = super::read_parquet_slice(&f, at, PREFLIGHT_SLICE_ROWS, None).and_then(|df| read(&df, &f));
+            let part = match parsed {
+                Ok(i) => i,
+                Err(e) => {
+                    p.add(Level::Unusable, e.to_string());
+                    continue 'files;
+                }
+            };
+            if let Err(e) = ids.check(ids_of(&part), at, &f) {
+                p.add(Level::Unusable, e.to_string());
+                continue 'files;
+            }
+            add(&mut facts, &part);
+            at += PREFLIGHT_SLICE_ROWS;
+            if at >= n {
+                break;
+            }
+        }
+        if let Err(e) = ids.finish(&f) {
+            p.add(Level::Unusable, e.to_string());
+            continue;
+        }
+        let Some(s) = facts.span() else {
+            p.add(Level::Note, format!("{}: no rows", f.display()));
+            continue;
+        };
+        each(p, &f, &facts, &s);
+    }
 }
 
 fn check_coverage(p: &mut Preflight, eph: &Ephemeris, bodies: &[i32], s: &Span) {
@@ -112,7 +209,7 @@ fn check_coverage(p: &mut Preflight, eph: &Ephemeris, bodies: &[i32], s: &Span) 
     }
 }
 
-fn check_earth(p: &mut Preflight, earth: &EarthModel, s: &Span, stations_days: &[i64]) {
+fn check_earth(p: &mut Preflight, earth: &EarthModel, s: &Span, days: &BTreeMap<i64, usize>) {
     let (a, b) = earth.eop.span_mjd();
     if s.lo < a || s.hi + 1 > b {
         p.add(Level::Problem, format!("EOP table {} covers MJD {a} … {b}, observations span MJD {} … {}", earth.eop.path().display(), s.lo, s.hi));
@@ -120,7 +217,7 @@ fn check_earth(p: &mut Preflight, earth: &EarthModel, s: &Span, stations_days: &
         p.add(Level::Ok, format!("EOP table {} covers MJD {a} … {b}", earth.eop.path().display()));
     }
     if let Some(pred) = earth.eop.first_predicted_mjd() {
-        let n = stations_days.iter().filter(|d| **d + 1 >= pred).count();
+        let n: usize = days.range(pred - 1..).map(|(_, c)| c).sum();
         if n > 0 {
             p.add(Level::Note, format!("{n} rows fall where the EOP values are PREDICTIONS (from MJD {pred}); rerun with newer EOP for final values"));
         }
@@ -133,53 +230,13 @@ fn check_earth(p: &mut Preflight, earth: &EarthModel, s: &Span, stations_days: &
     }
 }
 
-fn unknown_codes(p: &mut Preflight, cat: &StationCatalog, what: &str, codes: &[Option<String>]) {
-    let mut unknown: BTreeMap<&str, usize> = BTreeMap::new();
-    for c in codes.iter().flatten() {
-        if !c.is_empty() && cat.get(c).is_err() {
-            *unknown.entry(c.as_str()).or_default() += 1;
-        }
-    }
+fn unknown_codes(p: &mut Preflight, cat: &StationCatalog, what: &str, codes: &BTreeMap<String, (usize, i64, i64)>) {
+    let unknown: BTreeMap<&str, usize> = codes.iter().filter(|(c, _)| cat.get(c).is_err()).map(|(c, v)| (c.as_str(), v.0)).collect();
     if unknown.is_empty() {
         p.add(Level::Ok, format!("every {what} is in the station catalogue"));
     } else {
         let list: Vec<String> = unknown.iter().map(|(c, n)| format!("{c} ({n} rows)")).collect();
         p.add(Level::Problem, format!("unknown {what}: {}", list.join(", ")));
-    }
-}
-
-/// Reads every input partition, checks schema and ids, and hands the usable
-/// ones with their span to `each`.
-fn each_partition<I>(
-    p: &mut Preflight,
-    input: &Path,
-    read: impl Fn(&polars::prelude::DataFrame, &Path) -> Result<I, super::PipelineError>,
-    ids_days_fracs: impl Fn(&I) -> (&[Option<String>], &[Option<i64>], &[Option<f64>]),
-    mut each: impl FnMut(&mut Preflight, &Path, &I, &Span),
-) {
-    let files = match resolve_inputs(input) {
-        Ok((f, _)) => f,
-        Err(e) => return p.add(Level::Unusable, e.to_string()),
-    };
-    for f in files {
-        let parsed = read_parquet(&f).map_err(super::PipelineError::from).and_then(|df| read(&df, &f));
-        let input = match parsed {
-            Ok(i) => i,
-            Err(e) => {
-                p.add(Level::Unusable, e.to_string());
-                continue;
-            }
-        };
-        let (ids, days, fracs) = ids_days_fracs(&input);
-        if let Err(e) = super::check_unique_ids(ids, &f) {
-            p.add(Level::Unusable, e.to_string());
-            continue;
-        }
-        let Some(s) = span(days, fracs) else {
-            p.add(Level::Note, format!("{}: no rows", f.display()));
-            continue;
-        };
-        each(p, &f, &input, &s);
     }
 }
 
@@ -214,37 +271,35 @@ fn preflight_pulsar(file: &PipelineFile, p: &mut Preflight) {
     p.add(Level::Ok, format!("kernels, EOP, stations{} loaded", if lp.ctx.clocks.is_empty() { "" } else { ", clock tables" }));
     let mut bodies = vec![399];
     bodies.extend(lp.ctx.shapiro.iter().map(|b| b.naif_id));
-    each_partition(p, &lp.input_path, super::pulsar::read_pulsar_input, |i| (&i.obs_id, &i.day, &i.frac), |p, f, input, s| {
-        p.add(Level::Ok, format!("{}: {} rows, arrival MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
-        unknown_codes(p, &lp.ctx.stations, "site", &input.site);
-        check_coverage(p, &lp.ctx.ephemeris, &bodies, &s);
-        let days: Vec<i64> = input.day.iter().flatten().copied().collect();
-        check_earth(p, &lp.ctx.earth, &s, &days);
-        if lp.ctx.input_is_site_clock {
-            let mut per_site: BTreeMap<&str, (i64, i64)> = BTreeMap::new();
-            for (site, d) in input.site.iter().zip(&input.day) {
-                if let (Some(site), Some(d)) = (site, d) {
-                    let e = per_site.entry(site.as_str()).or_insert((*d, *d));
-                    e.0 = e.0.min(*d);
-                    e.1 = e.1.max(*d);
-                }
-            }
-            for (site, (lo, hi)) in per_site {
-                match lp.ctx.clocks.get(site) {
-                    None => p.add(Level::Problem, format!("site {site} has no clock chain ([clocks] sites) but the input is in site-clock time")),
-                    Some(chain) => {
-                        for t in chain {
-                            let (a, b) = t.span_mjd();
-                            if (lo as f64) < a || (hi as f64 + 1.0) > b {
-                                let level = if lp.ctx.allow_clock_extrapolation { Level::Note } else { Level::Problem };
-                                p.add(level, format!("clock table {} covers MJD {a} … {b}; site {site} observes MJD {lo} … {hi}{}", t.path.display(), if lp.ctx.allow_clock_extrapolation { " (end values will be held and rows flagged)" } else { "" }));
+    each_partition(
+        p,
+        &lp.input_path,
+        super::pulsar::read_pulsar_input,
+        |facts, i| facts.add(&i.day, &i.frac, &i.site, None, None),
+        |i| &i.obs_id,
+        |p, f, facts, s| {
+            p.add(Level::Ok, format!("{}: {} rows, arrival MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
+            unknown_codes(p, &lp.ctx.stations, "site", &facts.codes);
+            check_coverage(p, &lp.ctx.ephemeris, &bodies, s);
+            check_earth(p, &lp.ctx.earth, s, &facts.days);
+            if lp.ctx.input_is_site_clock {
+                for (site, (_, lo, hi)) in &facts.codes {
+                    match lp.ctx.clocks.get(site) {
+                        None => p.add(Level::Problem, format!("site {site} has no clock chain ([clocks] sites) but the input is in site-clock time")),
+                        Some(chain) => {
+                            for t in chain {
+                                let (a, b) = t.span_mjd();
+                                if (*lo as f64) < a || (*hi as f64 + 1.0) > b {
+                                    let level = if lp.ctx.allow_clock_extrapolation { Level::Note } else { Level::Problem };
+                                    p.add(level, format!("clock table {} covers MJD {a} … {b}; site {site} observes MJD {lo} … {hi}{}", t.path.display(), if lp.ctx.allow_clock_extrapolation { " (end values will be held and rows flagged)" } else { "" }));
+                                }
                             }
                         }
                     }
                 }
             }
-        }
-    });
+        },
+    );
 }
 
 fn preflight_tracking(file: &PipelineFile, p: &mut Preflight) {
@@ -255,16 +310,22 @@ fn preflight_tracking(file: &PipelineFile, p: &mut Preflight) {
     p.add(Level::Ok, "kernels, EOP, stations loaded");
     let mut bodies = vec![399, lt.ctx.target];
     bodies.extend(lt.ctx.shapiro.iter().map(|b| b.naif_id));
-    each_partition(p, &lt.input_path, super::tracking::read_tracking_input, |i| (&i.obs_id, &i.day, &i.frac), |p, f, input, s| {
-        p.add(Level::Ok, format!("{}: {} rows, reception MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
-        let bad_kinds: BTreeSet<&str> = input.kind.iter().flatten().filter(|k| k.parse::<crate::tracking::observables::Kind>().is_err()).map(String::as_str).collect();
-        if !bad_kinds.is_empty() {
-            p.add(Level::Problem, format!("unknown kinds: {}", bad_kinds.into_iter().collect::<Vec<_>>().join(", ")));
-        }
-        unknown_codes(p, &lt.ctx.stations, "rx_station", &input.rx_station);
-        unknown_codes(p, &lt.ctx.stations, "tx_station", &input.tx_station);
-        check_coverage(p, &lt.ctx.ephemeris, &bodies, &s);
-        let days: Vec<i64> = input.day.iter().flatten().copied().collect();
-        check_earth(p, &lt.ctx.earth, &s, &days);
-    });
+    each_partition(
+        p,
+        &lt.input_path,
+        super::tracking::read_tracking_input,
+        |facts, i| facts.add(&i.day, &i.frac, &i.rx_station, Some(&i.tx_station), Some(&i.kind)),
+        |i| &i.obs_id,
+        |p, f, facts, s| {
+            p.add(Level::Ok, format!("{}: {} rows, reception MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
+            let bad_kinds: Vec<&str> = facts.kinds.iter().filter(|k| k.parse::<crate::tracking::observables::Kind>().is_err()).map(String::as_str).collect();
+            if !bad_kinds.is_empty() {
+                p.add(Level::Problem, format!("unknown kinds: {}", bad_kinds.join(", ")));
+            }
+            unknown_codes(p, &lt.ctx.stations, "rx_station", &facts.codes);
+            unknown_codes(p, &lt.ctx.stations, "tx_station", &facts.codes2);
+            check_coverage(p, &lt.ctx.ephemeris, &bodies, s);
+            check_earth(p, &lt.ctx.earth, s, &facts.days);
+        },
+    );
 }

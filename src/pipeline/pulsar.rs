@@ -331,7 +331,9 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
     // Grid the celestial pole over the batch's span (±1 day).
     let days: Vec<i64> = input.day.iter().flatten().copied().filter(|d| (40_000..100_000).contains(d)).collect();
     if let (Some(lo), Some(hi)) = (days.iter().min(), days.iter().max()) {
-        lp.ctx.earth.set_cip_grid(*lo as f64, *hi as f64 + 1.0);
+        if !lp.ctx.earth.grids_cover(*lo as f64, *hi as f64 + 1.0) {
+            lp.ctx.earth.set_cip_grid(*lo as f64, *hi as f64 + 1.0);
+        }
     }
     let n = input.obs_id.len();
     let mut pre: Vec<Option<String>> = vec![None; n];
@@ -389,23 +391,37 @@ pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSu
     super::for_each_partition(&input, &output, &base, |inp, out, prov| run_pulsar_partition(&mut lp, inp, out, prov, opts.plots))
 }
 
-/// One partition of a pulsar run.
-fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
-    let df = read_parquet(input_path)?;
-    let input = read_pulsar_input(&df, input_path)?;
-    check_unique_ids(&input.obs_id, input_path)?;
-    let results = compute_pulsar(lp, &input);
+/// Rows above which a partition is streamed in slices (bounded memory);
+/// `LAPSE_STREAM_ROWS` overrides it (tests use a small value).
+pub const STREAM_ABOVE_ROWS: usize = 2_000_000;
+/// Rows per slice when streaming; `LAPSE_STREAM_SLICE` overrides it.
+pub const STREAM_SLICE_ROWS: usize = 500_000;
 
-    // Residuals: optional weighted-mean removal over the accepted rows.
+fn env_usize(name: &str, default: usize) -> usize {
+    std::env::var(name).ok().and_then(|v| v.parse().ok()).filter(|v: &usize| *v > 0).unwrap_or(default)
+}
+
+/// Output and rejects frames of one batch, with `offset` subtracted from
+/// the residuals, and the compact per-row values the summary needs
+/// (site, BAT MJD, residual, σ of accepted rows).
+struct BatchFrames {
+    out: DataFrame,
+    rejects: DataFrame,
+    reasons: Vec<String>,
+    sites: Vec<String>,
+    rejected_sites: Vec<String>,
+    bat_mjd: Vec<f64>,
+    residual_s: Vec<f64>,
+    sigma_s: Vec<f64>,
+    eop_predicted: usize,
+    clock_extrapolated: usize,
+}
+
+fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_path: &Path, results: &[Result<ArrivalResult, String>], offset: f64) -> Result<BatchFrames, PipelineError> {
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<&ArrivalResult> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
     let sigma_s: Vec<f64> = results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect();
-    let raw: Vec<f64> = good.iter().map(|g| g.residual_s).collect();
-    let stats_raw = residual_summary(&raw, &sigma_s, false);
-    let offset = if lp.subtract_weighted_mean { stats_raw.weighted_mean_s } else { 0.0 };
-    let residual: Vec<f64> = raw.iter().map(|r| r - offset).collect();
-    let stats = residual_summary(&residual, &sigma_s, false);
-
+    let residual: Vec<f64> = good.iter().map(|g| g.residual_s - offset).collect();
     let ts = &lp.ctx.earth.time;
     let parts = |e: &crate::time::Epoch| ts.mjd_parts(e).unwrap_or((e.mjd_day(), f64::NAN));
     let col_f = |name: &str, v: Vec<f64>| Column::new(name.into(), v);
@@ -431,9 +447,27 @@ fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &
     computed.push(Column::new("clock_extrapolated".into(), good.iter().map(|g| g.clock_extrapolated).collect::<Vec<bool>>()));
     computed.push(Column::new("eop_predicted".into(), good.iter().map(|g| g.eop_predicted).collect::<Vec<bool>>()));
     let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
-    let (mut out, mut rejects) = assemble(&df, input_path, &ok, &reasons, computed, &[])?;
+    let (out, rejects) = assemble(df, input_path, &ok, &reasons, computed, &[])?;
+    let site = |i: usize| input.site[i].clone().unwrap_or_else(|| "(null)".into());
+    Ok(BatchFrames {
+        out,
+        rejects,
+        reasons,
+        sites: (0..results.len()).filter(|i| ok[*i]).map(site).collect(),
+        rejected_sites: (0..results.len()).filter(|i| !ok[*i]).map(site).collect(),
+        bat_mjd: bat.iter().map(|(d, f)| *d as f64 + f).collect(),
+        residual_s: residual,
+        sigma_s,
+        eop_predicted: good.iter().filter(|g| g.eop_predicted).count(),
+        clock_extrapolated: good.iter().filter(|g| g.clock_extrapolated).count(),
+    })
+}
 
-    let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), output_path, &reasons);
+/// Summary notes, provenance entries and plots from a partition's compact
+/// per-row values.
+#[allow(clippy::too_many_arguments)]
+fn finish_partition<S: AsRef<str>>(lp: &LoadedPulsar, summary: &mut RunSummary, prov: &mut Provenance, sites: &[S], rejected_sites: &[String], residual: &[f64], sigma_s: &[f64], offset: f64, eop_predicted: usize, clock_extrapolated: usize) {
+    let stats = residual_summary(residual, sigma_s, false);
     summary.notes.push(format!(
         "residuals: {} rows, weighted RMS {:.3} ns, χ² {:.2} (χ²/N {:.3}){}",
         stats.count,
@@ -442,52 +476,209 @@ fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &
         if stats.count > 0 { stats.chi2 / stats.count as f64 } else { 0.0 },
         if lp.subtract_weighted_mean { format!(", weighted mean {:.3} ns removed", offset * 1e9) } else { String::new() }
     ));
-    // Per-site table: rows, rejected, weighted RMS, χ².
-    let mut by_site: BTreeMap<String, (Vec<f64>, Vec<f64>, usize)> = BTreeMap::new();
-    let mut k = 0;
-    for (i, r) in results.iter().enumerate() {
-        let site = input.site[i].clone().unwrap_or_else(|| "(null)".into());
-        let e = by_site.entry(site).or_default();
-        if r.is_ok() {
-            e.0.push(residual[k]);
-            e.1.push(sigma_s[k]);
-            k += 1;
-        } else {
-            e.2 += 1;
-        }
+    let mut by_site: BTreeMap<&str, (Vec<f64>, Vec<f64>, usize)> = BTreeMap::new();
+    for ((s, r), sg) in sites.iter().zip(residual).zip(sigma_s) {
+        let e = by_site.entry(s.as_ref()).or_default();
+        e.0.push(*r);
+        e.1.push(*sg);
+    }
+    for s in rejected_sites {
+        by_site.entry(s.as_str()).or_default().2 += 1;
     }
     summary.notes.push(format!("  {:<14} {:>8} {:>9} {:>18} {:>12}", "site", "rows", "rejected", "weighted RMS (ns)", "χ²"));
     for (s, (r, sg, rej)) in &by_site {
         let st = residual_summary(r, sg, false);
         summary.notes.push(format!("  {s:<14} {:>8} {:>9} {:>18.3} {:>12.2}", st.count, rej, st.weighted_rms_s * 1e9, st.chi2));
     }
-    if good.iter().any(|g| g.eop_predicted) {
-        summary.notes.push(format!("{} rows used PREDICTED Earth-orientation values (column eop_predicted)", good.iter().filter(|g| g.eop_predicted).count()));
+    if eop_predicted > 0 {
+        summary.notes.push(format!("{eop_predicted} rows used PREDICTED Earth-orientation values (column eop_predicted)"));
     }
-    if good.iter().any(|g| g.clock_extrapolated) {
-        summary.notes.push(format!("{} rows used EXTRAPOLATED clock corrections (column clock_extrapolated)", good.iter().filter(|g| g.clock_extrapolated).count()));
-    }
-
-    let (lo, hi) = input.day.iter().flatten().fold((i64::MAX, i64::MIN), |(a, b), d| (a.min(*d), b.max(*d)));
-    prov.set("input.observations.0.bytes", &std::fs::metadata(input_path).map(|m| m.len()).unwrap_or(0).to_string());
-    if lo <= hi {
-        prov.set("input.observations.0.coverage", &format!("arrival MJD {lo} … {hi}"));
+    if clock_extrapolated > 0 {
+        summary.notes.push(format!("{clock_extrapolated} rows used EXTRAPOLATED clock corrections (column clock_extrapolated)"));
     }
     prov.set("residuals.count", &stats.count.to_string());
     prov.set("residuals.weighted_rms_s", &format!("{:e}", stats.weighted_rms_s));
     prov.set("residuals.chi2", &format!("{:e}", stats.chi2));
     prov.set("residuals.weighted_mean_removed_s", &format!("{offset:e}"));
     prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
+}
+
+/// Plots of a partition (at most 50 000 points per plot: every k-th row).
+fn partition_plots(output_path: &Path, sites: &[String], bat_mjd: &[f64], residual: &[f64], sigma_s: &[f64]) -> Result<Vec<PathBuf>, PipelineError> {
+    let step = sites.len().div_ceil(50_000).max(1);
+    let idx: Vec<usize> = (0..sites.len()).step_by(step).collect();
+    let pick = |v: &[f64], scale: f64| idx.iter().map(|i| v[*i] * scale).collect::<Vec<f64>>();
+    let labels: Vec<String> = idx.iter().map(|i| sites[*i].clone()).collect();
+    let groups = crate::plots::group(&labels, &pick(bat_mjd, 1.0), &pick(residual, 1e6), &pick(sigma_s, 1e6));
+    crate::plots::residual_plots(output_path, "residuals", "pulsar timing residuals", "barycentric arrival time (MJD, TDB)", "residual (µs)", &groups).map_err(|message| PipelineError::Invalid { path: output_path.into(), message })
+}
+
+/// One partition of a pulsar run: in memory, or streamed in slices above
+/// [`STREAM_ABOVE_ROWS`] rows (same results, bounded memory).
+fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
+    let n_rows = std::fs::File::open(input_path).ok().and_then(|f| crate::io::guarded(|| ParquetReader::new(f).num_rows().ok()).flatten()).unwrap_or(0);
+    if n_rows > env_usize("LAPSE_STREAM_ROWS", STREAM_ABOVE_ROWS) {
+        return run_pulsar_partition_streamed(lp, input_path, output_path, prov, plots, n_rows);
+    }
+    let df = read_parquet(input_path)?;
+    let input = read_pulsar_input(&df, input_path)?;
+    check_unique_ids(&input.obs_id, input_path)?;
+    let results = compute_pulsar(lp, &input);
+    // Residuals: optional weighted-mean removal over the accepted rows.
+    let sigma_s: Vec<f64> = results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect();
+    let raw: Vec<f64> = results.iter().filter_map(|r| r.as_ref().ok()).map(|g| g.residual_s).collect();
+    let offset = if lp.subtract_weighted_mean { residual_summary(&raw, &sigma_s, false).weighted_mean_s } else { 0.0 };
+    let mut f = batch_frames(lp, &df, &input, input_path, &results, offset)?;
+    let mut summary = RunSummary::new(df.height(), f.out.height(), f.rejects.height(), output_path, &f.reasons);
+    observations_provenance(&mut prov, input_path, &input.day);
+    finish_partition(lp, &mut summary, &mut prov, &f.sites, &f.rejected_sites, &f.residual_s, &f.sigma_s, offset, f.eop_predicted, f.clock_extrapolated);
     let metadata = prov.finish();
     // Rejects first, output last: an existing output marks a complete partition.
-    write_parquet(&mut rejects, &rejects_path(output_path), &metadata)?;
-    write_parquet(&mut out, output_path, &metadata)?;
+    write_parquet(&mut f.rejects, &rejects_path(output_path), &metadata)?;
+    write_parquet(&mut f.out, output_path, &metadata)?;
     if plots {
-        let times: Vec<f64> = bat.iter().map(|(d, f)| *d as f64 + f).collect();
-        let sites: Vec<String> = results.iter().zip(&input.site).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.clone().unwrap_or_default()).collect();
-        let groups = crate::plots::group(&sites, &times, &residual.iter().map(|r| r * 1e6).collect::<Vec<_>>(), &sigma_s.iter().map(|s| s * 1e6).collect::<Vec<_>>());
-        summary.plots = crate::plots::residual_plots(output_path, "residuals", "pulsar timing residuals", "barycentric arrival time (MJD, TDB)", "residual (µs)", &groups)
-            .map_err(|message| PipelineError::Invalid { path: output_path.into(), message })?;
+        summary.plots = partition_plots(output_path, &f.sites, &f.bat_mjd, &f.residual_s, &f.sigma_s)?;
+    }
+    Ok(summary)
+}
+
+fn observations_provenance(prov: &mut Provenance, input_path: &Path, days: &[Option<i64>]) {
+    let (lo, hi) = days.iter().flatten().fold((i64::MAX, i64::MIN), |(a, b), d| (a.min(*d), b.max(*d)));
+    prov.set("input.observations.0.bytes", &std::fs::metadata(input_path).map(|m| m.len()).unwrap_or(0).to_string());
+    if lo <= hi {
+        prov.set("input.observations.0.coverage", &format!("arrival MJD {lo} … {hi}"));
+    }
+}
+
+use super::read_parquet_slice as read_slice;
+
+/// The streamed form of [`run_pulsar_partition`]: slices of the input are
+/// computed and written (raw residuals) to temporary files while only compact
+/// per-row values stay in memory; then the final files are written from them
+/// with the weighted mean removed and the metadata complete.
+fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool, n_rows: usize) -> Result<RunSummary, PipelineError> {
+    let slice = env_usize("LAPSE_STREAM_SLICE", STREAM_SLICE_ROWS);
+    let werr = |p: &Path, e: PolarsError| PipelineError::from(crate::io::IoError::Write { path: p.into(), message: e.to_string() });
+    // Grids once for the whole file.
+    let days_df = read_slice(input_path, 0, n_rows, Some(vec!["arrival_mjd_day".into()]))?;
+    let all_days: Vec<Option<i64>> = crate::io::Columns { df: &days_df, path: input_path }.i64("arrival_mjd_day")?;
+    drop(days_df);
+    let valid: Vec<i64> = all_days.iter().flatten().copied().filter(|d| (40_000..100_000).contains(d)).collect();
+    if let (Some(lo), Some(hi)) = (valid.iter().min(), valid.iter().max()) {
+        lp.ctx.earth.set_cip_grid(*lo as f64, *hi as f64 + 1.0);
+    }
+    // Pass 1: compute slices, raw residuals to temporary files.
+    let tmp_out = output_path.with_extension("stream-out.partial");
+    let tmp_rej = output_path.with_extension("stream-rejects.partial");
+    let mut w_out: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>> = None;
+    let mut w_rej: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>> = None;
+    let mut ids = super::IdChecker::new(n_rows);
+    // Compact per-row state: site index, raw residual, σ; plot data every k-th row.
+    let mut site_names: Vec<String> = Vec::new();
+    let mut site_idx: Vec<u16> = Vec::with_capacity(n_rows);
+    let mut rejected_sites: Vec<String> = Vec::new();
+    let (mut raw, mut sigma_s, mut reasons) = (Vec::with_capacity(n_rows), Vec::with_capacity(n_rows), Vec::new());
+    let plot_every = n_rows.div_ceil(50_000).max(1);
+    let (mut p_sites, mut p_bat, mut p_raw, mut p_sigma) = (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+    let (mut eop_predicted, mut clock_extrapolated, mut rows_out, mut rows_rej) = (0usize, 0usize, 0usize, 0usize);
+    let mut offset_row = 0usize;
+    while offset_row < n_rows {
+        let df = read_slice(input_path, offset_row, slice, None)?;
+        let input = read_pulsar_input(&df, input_path)?;
+        ids.check(&input.obs_id, offset_row, input_path)?;
+        let results = compute_pulsar(lp, &input);
+        let mut f = batch_frames(lp, &df, &input, input_path, &results, 0.0)?;
+        if w_out.is_none() {
+            let mk = |p: &Path, schema: &Schema| -> Result<polars::io::parquet::write::BatchedWriter<std::fs::File>, PipelineError> {
+                let file = std::fs::File::create(p).map_err(|e| crate::io::IoError::Write { path: p.into(), message: e.to_string() })?;
+                ParquetWriter::new(file).with_compression(ParquetCompression::Zstd(None)).set_parallel(false).batched(schema).map_err(|e| werr(p, e))
+            };
+            w_out = Some(mk(&tmp_out, &f.out.schema())?);
+            w_rej = Some(mk(&tmp_rej, &f.rejects.schema())?);
+        }
+        if let (Some(wo), Some(wr)) = (w_out.as_mut(), w_rej.as_mut()) {
+            wo.write_batch(&f.out).map_err(|e| werr(&tmp_out, e))?;
+            wr.write_batch(&f.rejects).map_err(|e| werr(&tmp_rej, e))?;
+        }
+        rows_out += f.out.height();
+        rows_rej += f.rejects.height();
+        for (k, s) in f.sites.iter().enumerate() {
+            let i = match site_names.iter().position(|n| n == s) {
+                Some(i) => i,
+                None => {
+                    site_names.push(s.clone());
+                    site_names.len() - 1
+                }
+            };
+            if i > u16::MAX as usize {
+                return Err(PipelineError::Invalid { path: input_path.into(), message: "more than 65 535 distinct sites".into() });
+            }
+            site_idx.push(i as u16);
+            if (raw.len() + k) % plot_every == 0 {
+                p_sites.push(s.clone());
+                p_bat.push(f.bat_mjd[k]);
+                p_raw.push(f.residual_s[k]);
+                p_sigma.push(f.sigma_s[k]);
+            }
+        }
+        rejected_sites.append(&mut f.rejected_sites);
+        raw.append(&mut f.residual_s);
+        sigma_s.append(&mut f.sigma_s);
+        reasons.append(&mut f.reasons);
+        eop_predicted += f.eop_predicted;
+        clock_extrapolated += f.clock_extrapolated;
+        offset_row += slice;
+    }
+    ids.finish(input_path)?;
+    if let (Some(wo), Some(wr)) = (w_out.take(), w_rej.take()) {
+        wo.finish().map_err(|e| werr(&tmp_out, e))?;
+        wr.finish().map_err(|e| werr(&tmp_rej, e))?;
+    }
+    // Statistics over all rows, in input order (as the in-memory path).
+    let offset = if lp.subtract_weighted_mean { residual_summary(&raw, &sigma_s, false).weighted_mean_s } else { 0.0 };
+    for r in raw.iter_mut() {
+        *r -= offset;
+    }
+    let residual = raw;
+    let sites: Vec<&str> = site_idx.iter().map(|i| site_names[*i as usize].as_str()).collect();
+    let mut summary = RunSummary::new(n_rows, rows_out, rows_rej, output_path, &reasons);
+    observations_provenance(&mut prov, input_path, &all_days);
+    finish_partition(lp, &mut summary, &mut prov, &sites, &rejected_sites, &residual, &sigma_s, offset, eop_predicted, clock_extrapolated);
+    drop(sites);
+    let metadata = prov.finish();
+    // Pass 2: final files, residuals with the offset removed, full metadata.
+    let kv: Vec<polars_parquet::write::KeyValue> = metadata.iter().map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) }).collect();
+    for (tmp, fin, n, fix) in [(&tmp_rej, rejects_path(output_path), rows_rej, false), (&tmp_out, output_path.to_path_buf(), rows_out, true)] {
+        let part = fin.with_extension("parquet.partial");
+        let mut w: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>> = None;
+        let mut at = 0usize;
+        loop {
+            let mut df = read_slice(tmp, at, slice, None)?;
+            if w.is_none() {
+                let file = std::fs::File::create(&part).map_err(|e| crate::io::IoError::Write { path: part.clone(), message: e.to_string() })?;
+                w = Some(ParquetWriter::new(file).with_compression(ParquetCompression::Zstd(None)).set_parallel(false).with_key_value_metadata(Some(KeyValueMetadata::Static(kv.clone()))).batched(&df.schema()).map_err(|e| werr(&part, e))?);
+            }
+            if fix && offset != 0.0 {
+                let r: Vec<f64> = crate::io::Columns { df: &df, path: tmp }.f64("residual_s")?.iter().map(|v| v.unwrap_or(f64::NAN) - offset).collect();
+                df.with_column(Column::new("residual_s".into(), r)).map_err(|e| werr(&part, e))?;
+            }
+            if let Some(w) = w.as_mut() {
+                w.write_batch(&df).map_err(|e| werr(&part, e))?;
+            }
+            at += slice;
+            if at >= n {
+                break;
+            }
+        }
+        if let Some(w) = w {
+            w.finish().map_err(|e| werr(&part, e))?;
+        }
+        std::fs::rename(&part, &fin).map_err(|e| crate::io::IoError::Write { path: fin.clone(), message: e.to_string() })?;
+        let _ = std::fs::remove_file(tmp);
+    }
+    if plots {
+        let p_res: Vec<f64> = p_raw.iter().map(|r| r - offset).collect();
+        summary.plots = partition_plots(output_path, &p_sites, &p_bat, &p_res, &p_sigma)?;
     }
     Ok(summary)
 }

@@ -113,6 +113,7 @@ where
             counts[b as usize] += 1;
         }
     }
+    let outside = z.iter().filter(|v| v.abs() >= 5.0).count();
     let n = z.len().max(1) as f64;
     let peak = counts.iter().copied().max().unwrap_or(1).max((n * width / (2.0 * std::f64::consts::PI).sqrt()).ceil() as usize) as f64 * 1.15;
     let mut chart = ChartBuilder::on(area)
@@ -136,7 +137,7 @@ where
             Rectangle::new([(x, 0.0), (x + width, *c as f64)], RGBColor(31, 119, 180).mix(0.6).filled())
         }))
         .map_err(|e| e.to_string())?
-        .label(format!("{} rows", z.len()))
+        .label(if outside > 0 { format!("{} rows ({outside} beyond ±5, not shown)", z.len()) } else { format!("{} rows", z.len()) })
         .legend(|(x, y)| Rectangle::new([(x, y - 4), (x + 12, y + 4)], RGBColor(31, 119, 180).filled()));
     let gauss = (0..=200).map(|i| {
         let x = -5.0 + i as f64 * 0.05;
