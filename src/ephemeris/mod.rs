@@ -184,14 +184,15 @@ impl Ephemeris {
         let mut out = String::new();
         for k in &self.kernels {
             let _ = writeln!(out, "{}  ({} segments)", k.path.display(), k.segments.len());
-            let _ = writeln!(out, "  {:<28} {:<28} {:>6} {:>5}  coverage (TDB)", "body", "relative to", "frame", "type");
+            let _ = writeln!(out, "  {:<28} {:<28} {:>12} {:>5}  coverage (TDB)", "body", "relative to", "frame", "type");
             for s in &k.segments {
                 let _ = writeln!(
                     out,
-                    "  {:<28} {:<28} {:>6} {:>5}  {}",
+                    "  {:<28} {:<28} {:>12} {:>5}  {}",
                     format!("{} ({})", body_name(s.target), s.target),
                     format!("{} ({})", body_name(s.center), s.center),
-                    s.frame,
+                    // NAIF frame 1 is J2000, aligned with the ICRF in DE kernels.
+                    if s.frame == 1 { "J2000/ICRF".to_string() } else { format!("NAIF {}", s.frame) },
                     s.spk_type,
                     span_text(s.start_s, s.end_s)
                 );
