@@ -291,6 +291,22 @@ pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg
     Ok(SharedInputs { ephemeris, constants, earth, stations, inputs })
 }
 
+/// Provenance shared by every partition of a run with geometry: the
+/// pipeline, every shared input file, and the constants used.
+pub fn shared_provenance(file: &PipelineFile, inputs: &[(String, PathBuf, String)], constants: &Constants, shapiro: &[crate::delays::ShapiroBody], ppn_gamma: f64) -> Result<Provenance, PipelineError> {
+    let mut base = Provenance::start(file);
+    for (role, p, cov) in inputs {
+        base.add_input(role, p, cov)?;
+    }
+    base.set("constants.ephemeris", &constants.ephemeris.name);
+    for b in shapiro {
+        base.set(&format!("constants.gm_m3_s2.{}", b.name), &format!("{:e}", b.gm_m3_s2));
+    }
+    base.set("constants.ppn_gamma", &format!("{ppn_gamma}"));
+    base.set("constants.c_m_s", "299792458");
+    Ok(base)
+}
+
 /// Time scales from an optional leap-second file of a pipeline.
 pub(crate) fn load_time(file: &PipelineFile, leap: Option<&Path>) -> Result<(TimeScales, Option<PathBuf>), PipelineError> {
     match leap {
@@ -376,17 +392,8 @@ pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSu
     let mut lp = load_pulsar(file, opts.output.as_deref())?;
     lp.ctx.chunk_rows = opts.chunk_rows;
     lp.ctx.progress = opts.progress.clone();
-    let mut base = Provenance::start(file);
-    for (role, p, cov) in &lp.inputs {
-        base.add_input(role, p, cov)?;
-    }
-    base.set("constants.ephemeris", &lp.constants.ephemeris.name);
-    for b in &lp.ctx.shapiro {
-        base.set(&format!("constants.gm_m3_s2.{}", b.name), &format!("{:e}", b.gm_m3_s2));
-    }
-    base.set("constants.ppn_gamma", &format!("{}", lp.ctx.ppn_gamma));
+    let mut base = shared_provenance(file, &lp.inputs, &lp.constants, &lp.ctx.shapiro, lp.ctx.ppn_gamma)?;
     base.set("constants.dispersion_k_s_mhz2_cm3_pc", &format!("{DISPERSION_K_S_MHZ2_CM3_PC:e} (1/2.41e-4)"));
-    base.set("constants.c_m_s", "299792458");
     let (input, output) = (lp.input_path.clone(), lp.output_path.clone());
     super::for_each_partition(&input, &output, &base, |inp, out, prov| run_pulsar_partition(&mut lp, inp, out, prov, opts.plots))
 }

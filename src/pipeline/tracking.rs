@@ -239,16 +239,7 @@ pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary
     let mut lt = load_tracking(file, opts.output.as_deref())?;
     lt.ctx.chunk_rows = opts.chunk_rows;
     lt.ctx.progress = opts.progress.clone();
-    let mut base = Provenance::start(file);
-    for (role, p, cov) in &lt.inputs {
-        base.add_input(role, p, cov)?;
-    }
-    base.set("constants.ephemeris", &lt.constants.ephemeris.name);
-    for b in &lt.ctx.shapiro {
-        base.set(&format!("constants.gm_m3_s2.{}", b.name), &format!("{:e}", b.gm_m3_s2));
-    }
-    base.set("constants.ppn_gamma", &format!("{}", lt.ctx.ppn_gamma));
-    base.set("constants.c_m_s", "299792458");
+    let mut base = super::pulsar::shared_provenance(file, &lt.inputs, &lt.constants, &lt.ctx.shapiro, lt.ctx.ppn_gamma)?;
     base.set("target.naif_id", &lt.ctx.target.to_string());
     base.set("target.transponder_delay_s", &format!("{:e}", lt.ctx.transponder_delay_s));
     base.set("corrections.troposphere", match &lt.ctx.troposphere {
