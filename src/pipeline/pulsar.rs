@@ -778,9 +778,7 @@ pub fn synthesize(file: &PipelineFile, plan: &Path, out: &Path, noise: SynthNois
             if noise_s == 0.0 {
                 return ctx.earth.time.mjd_parts(&e).map_err(|e| e.to_string());
             }
-            let tai = ctx.earth.time.convert(e, TimeScale::Tai, 0.0).map_err(|e| e.to_string())?;
-            let tai = tai.plus_fs(crate::time::femto::seconds_to_fs(noise_s).unwrap_or(0)).map_err(|e| e.to_string())?;
-            let u = ctx.earth.time.convert(tai, TimeScale::Utc, 0.0).map_err(|e| e.to_string())?;
+            let u = ctx.earth.time.add_seconds(e, noise_s).map_err(|e| e.to_string())?;
             ctx.earth.time.mjd_parts(&u).map_err(|e| e.to_string())
         })
         .collect();

@@ -125,14 +125,6 @@ pub struct ArrivalResult {
     pub residual_s: f64,
 }
 
-/// Adds seconds to a UTC epoch through TAI (across day ends and leap seconds).
-fn utc_plus_s(ctx: &EarthModel, utc: Epoch, delta_s: f64) -> Result<Epoch, String> {
-    let d = seconds_to_fs(delta_s).ok_or_else(|| format!("non-finite time offset {delta_s}"))?;
-    let tai = ctx.time.convert(utc, TimeScale::Tai, 0.0).map_err(|e| e.to_string())?;
-    let tai = tai.plus_fs(d).map_err(|e| e.to_string())?;
-    ctx.time.convert(tai, TimeScale::Utc, 0.0).map_err(|e| e.to_string())
-}
-
 impl PulsarContext {
     /// Clock correction (s) for a site at an input epoch.
     fn clock(&self, site: &str, mjd: f64) -> Result<(f64, bool), String> {
@@ -169,7 +161,7 @@ impl PulsarContext {
         let station = self.stations.get(site).map_err(|e| format!("unknown site: {e}"))?;
         let mjd = site_time.mjd_day() as f64 + ratio_to_f64(site_time.fs_of_day(), crate::time::femto::FS_PER_DAY);
         let (clock_s, clock_extrapolated) = self.clock(site, mjd).map_err(|e| format!("clock correction unavailable: {e}"))?;
-        let utc = if clock_s == 0.0 { site_time } else { utc_plus_s(&self.earth, site_time, clock_s).map_err(|e| format!("arrival time not convertible: {e}"))? };
+        let utc = if clock_s == 0.0 { site_time } else { self.earth.time.add_seconds(site_time, clock_s).map_err(|e| format!("arrival time not convertible: {e}"))? };
         let st = self.earth.station_state(&self.ephemeris, station, &utc).map_err(|e| format!("geometry unavailable: {e}"))?;
         let einstein_s = ratio_to_f64(st.tdb.label_fs() - st.tt.label_fs(), FS_PER_S);
         let t = TdbSeconds::from_epoch(&st.tdb).map_err(|e| e.to_string())?;
@@ -240,7 +232,7 @@ impl PulsarContext {
             if r.residual_s.abs() <= SOLVE_TOL_S {
                 return Ok(e);
             }
-            e = utc_plus_s(&self.earth, e, -r.residual_s)?;
+            e = self.earth.time.add_seconds(e, -r.residual_s).map_err(|e| e.to_string())?;
         }
         Err(format!("no convergence to 1 ps near MJD {guess_mjd} at {site}"))
     }

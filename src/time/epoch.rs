@@ -374,6 +374,21 @@ impl TimeScales {
         Ok(tt)
     }
 
+    /// The epoch `delta_s` SI seconds later (earlier if negative), in the
+    /// same scale. UTC epochs move through TAI, so day ends and leap seconds
+    /// are crossed correctly.
+    ///
+    /// # Errors
+    /// A non-finite shift, or UTC outside the leap-second table.
+    pub fn add_seconds(&self, e: Epoch, delta_s: f64) -> Result<Epoch, TimeError> {
+        let d = seconds_to_fs(delta_s).ok_or_else(|| TimeError::NonFinite { what: "time offset (s)".into(), value: delta_s })?;
+        if e.scale != TimeScale::Utc {
+            return e.plus_fs(d);
+        }
+        let tai = self.convert(e, TimeScale::Tai, 0.0)?.plus_fs(d)?;
+        self.convert(tai, TimeScale::Utc, 0.0)
+    }
+
     /// Converts an epoch to another scale.
     ///
     /// `observer_s` is the topocentric part of TDB − TT at the observer in

@@ -275,13 +275,13 @@ impl TrackingContext {
                     Some(r) => r,
                     None => turnaround_ratio(m.uplink_hz).ok_or_else(|| format!("no turnaround ratio for uplink {} Hz (S or X band expected; set [target] turnaround_ratio)", m.uplink_hz))?,
                 };
-                let start_utc = self.utc_minus(&rx_utc, m.count_s)?;
+                let start_utc = self.earth.time.add_seconds(rx_utc, -m.count_s).map_err(|e| e.to_string())?;
                 let start = self.path(rx, tx, &start_utc)?;
                 let d_rho_s = ratio_to_f64(end.rho_fs - start.rho_fs, FS_PER_S);
                 num / den * m.uplink_hz * d_rho_s / m.count_s
             }
             Kind::Doppler1Way => {
-                let start_utc = self.utc_minus(&rx_utc, m.count_s)?;
+                let start_utc = self.earth.time.add_seconds(rx_utc, -m.count_s).map_err(|e| e.to_string())?;
                 let start = self.path(rx, None, &start_utc)?;
                 let dt2_s = ratio_to_f64(end.down.t_tx.label_fs() - start.down.t_tx.label_fs(), FS_PER_S);
                 let mid = start.down.t_tx.plus_fs((end.down.t_tx.label_fs() - start.down.t_tx.label_fs()) / 2).map_err(|e| e.to_string())?;
@@ -304,12 +304,6 @@ impl TrackingContext {
             elevation_rx_deg: end.elevation_rx_deg,
             troposphere_s: end.troposphere_s,
         })
-    }
-
-    fn utc_minus(&self, utc: &Epoch, s: f64) -> Result<Epoch, String> {
-        let tai = self.earth.time.convert(*utc, TimeScale::Tai, 0.0).map_err(|e| e.to_string())?;
-        let tai = tai.plus_fs(-s_to_fs(s)?).map_err(|e| e.to_string())?;
-        self.earth.time.convert(tai, TimeScale::Utc, 0.0).map_err(|e| e.to_string())
     }
 
     /// Computes a batch in parallel over fixed chunks, in input order.
