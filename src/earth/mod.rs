@@ -105,6 +105,19 @@ impl EarthModel {
         }
     }
 
+    /// Makes the grids cover the UTC days `days_mjd_utc` (each to its end),
+    /// building them only when the present grids fall short. Days outside
+    /// MJD 40 000 – 100 000 are skipped (their rows are rejected later), so
+    /// one wild value cannot make a huge grid. Grid nodes sit at fixed
+    /// multiples of a power-of-two step, so a result does not depend on
+    /// which span built the grid.
+    pub fn cover_utc_days(&mut self, days_mjd_utc: impl IntoIterator<Item = i64>) {
+        let (lo, hi) = days_mjd_utc.into_iter().filter(|d| (40_000..100_000).contains(d)).fold((i64::MAX, i64::MIN), |(lo, hi), d| (lo.min(d), hi.max(d)));
+        if lo <= hi && !self.grids_cover(lo as f64, hi as f64 + 1.0) {
+            self.set_cip_grid(lo as f64, hi as f64 + 1.0);
+        }
+    }
+
     /// Use grids of X, Y, s and of TDB − TT covering a UTC span (MJD): the
     /// fast path for batches, each within its tested bound of the direct path.
     pub fn set_cip_grid(&mut self, first_mjd_utc: f64, last_mjd_utc: f64) {

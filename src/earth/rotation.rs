@@ -158,6 +158,19 @@ impl TerrestrialToCelestial {
 mod tests {
     use super::*;
 
+    /// Nodes sit at fixed multiples of the step, so the interpolated value at
+    /// an epoch is bit-identical whichever span built the grid (batches may
+    /// reuse a wider grid built earlier).
+    #[test]
+    fn grid_value_does_not_depend_on_span() {
+        let narrow = CipGrid::new(60_000.0, 60_002.0, CIP_GRID_STEP_DAY);
+        let wide = CipGrid::new(59_990.5, 60_013.0, CIP_GRID_STEP_DAY);
+        for mjd in [60_000.3, 60_001.123_456_789, 60_001.75] {
+            assert_eq!(narrow.at(mjd), wide.at(mjd));
+            assert!(narrow.at(mjd).is_some());
+        }
+    }
+
     #[test]
     fn rotation_is_orthonormal_and_rate_is_perpendicular() {
         let eop = EopValues { ut1_minus_utc_s: 0.1, ut1_minus_tai_s: -36.9, x_p_rad: 1e-6, y_p_rad: 2e-6, dx_rad: 1e-9, dy_rad: -1e-9, predicted: false };

@@ -345,12 +345,7 @@ pub fn read_pulsar_input(df: &DataFrame, path: &Path) -> Result<PulsarInput, Pip
 /// Computes every row of a batch: results in input order (Err = reject reason).
 pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<ArrivalResult, String>> {
     // Grid the celestial pole over the batch's span (±1 day).
-    let days: Vec<i64> = input.day.iter().flatten().copied().filter(|d| (40_000..100_000).contains(d)).collect();
-    if let (Some(lo), Some(hi)) = (days.iter().min(), days.iter().max()) {
-        if !lp.ctx.earth.grids_cover(*lo as f64, *hi as f64 + 1.0) {
-            lp.ctx.earth.set_cip_grid(*lo as f64, *hi as f64 + 1.0);
-        }
-    }
+    lp.ctx.earth.cover_utc_days(input.day.iter().flatten().copied());
     let n = input.obs_id.len();
     let mut pre: Vec<Option<String>> = vec![None; n];
     let mut arrivals: Vec<Arrival> = Vec::with_capacity(n);
@@ -570,10 +565,7 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
     let days_df = read_slice(input_path, 0, n_rows, Some(vec!["arrival_mjd_day".into()]))?;
     let all_days: Vec<Option<i64>> = crate::io::Columns { df: &days_df, path: input_path }.i64("arrival_mjd_day")?;
     drop(days_df);
-    let valid: Vec<i64> = all_days.iter().flatten().copied().filter(|d| (40_000..100_000).contains(d)).collect();
-    if let (Some(lo), Some(hi)) = (valid.iter().min(), valid.iter().max()) {
-        lp.ctx.earth.set_cip_grid(*lo as f64, *hi as f64 + 1.0);
-    }
+    lp.ctx.earth.cover_utc_days(all_days.iter().flatten().copied());
     // Pass 1: compute slices, raw residuals to temporary files.
     let tmp_out = output_path.with_extension("stream-out.partial");
     let tmp_rej = output_path.with_extension("stream-rejects.partial");

@@ -187,10 +187,7 @@ pub fn read_tracking_input(df: &DataFrame, path: &Path) -> Result<TrackingInput,
 
 /// Computes every row (Err = reject reason), in input order.
 pub fn compute_tracking(lt: &mut LoadedTracking, input: &TrackingInput, check_values: bool) -> Vec<Result<TrackingResult, String>> {
-    let days: Vec<i64> = input.day.iter().flatten().copied().filter(|d| (40_000..100_000).contains(d)).collect();
-    if let (Some(lo), Some(hi)) = (days.iter().min(), days.iter().max()) {
-        lt.ctx.earth.set_cip_grid(*lo as f64, *hi as f64 + 1.0);
-    }
+    lt.ctx.earth.cover_utc_days(input.day.iter().flatten().copied());
     let n = input.obs_id.len();
     let mut out: Vec<Result<TrackingResult, String>> = Vec::with_capacity(n);
     let mut rows: Vec<Measurement> = Vec::with_capacity(n);

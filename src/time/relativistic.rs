@@ -154,6 +154,19 @@ mod tests {
     /// f64 products of offsets up to ~20 s: a few femtoseconds.
     const INVERSE_TOL_FS: i128 = 5;
 
+    /// Nodes sit at absolute multiples of the step: a value does not depend
+    /// on which span built the grid.
+    #[test]
+    fn tdb_grid_value_does_not_depend_on_span() {
+        let day = FS_PER_DAY;
+        let narrow = TdbGrid::new(60_000 * day, 60_002 * day, TDB_GRID_STEP_DAY);
+        let wide = TdbGrid::new(59_990 * day + day / 3, 60_013 * day, TDB_GRID_STEP_DAY);
+        for tt_fs in [60_000 * day + 12_345_678_901_234_567, 60_001 * day + day / 7] {
+            assert_eq!(narrow.at(tt_fs), wide.at(tt_fs));
+            assert!(narrow.at(tt_fs).is_some());
+        }
+    }
+
     #[test]
     fn tcg_tt_inverse_pair() {
         for k in -200..200i128 {
