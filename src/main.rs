@@ -441,9 +441,10 @@ fn time(args: TimeArgs) -> Result<ExitCode> {
         writeln!(out, "# {text} ({from})")?;
         let mut observer_s = observer_term_s;
         if let Some((model, eph, station)) = &earth {
-            let (term_s, eop_values) = model.observer_term_at(eph, station, &e).with_context(|| format!("{source}: {text} at site {}", station.code))?;
+            let state = model.station_state_at(eph, station, &e).with_context(|| format!("{source}: {text} at site {}", station.code))?;
+            let term_s = state.observer_term_s;
             observer_s = term_s;
-            writeln!(out, "# site {}: topocentric TDB − TT = {term_s:+.15e} s (v_E·x/c²){}", station.code, if eop_values.predicted { "; EOP values are PREDICTIONS" } else { "" })?;
+            writeln!(out, "# site {}: topocentric TDB − TT = {term_s:+.15e} s (v_E·x/c²){}", station.code, if state.eop.predicted { "; EOP values are PREDICTIONS" } else { "" })?;
         }
         if let (Some(table), true) = (&eop_table, targets.contains(&TimeScale::Ut1)) {
             let utc = ts.convert(e, TimeScale::Utc, observer_s).with_context(|| format!("{source}: {text}"))?;

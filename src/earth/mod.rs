@@ -14,7 +14,7 @@ pub use station::{Station, StationCatalog, StationError};
 
 use crate::ephemeris::{Ephemeris, EphemerisError, StateKm, TdbSeconds};
 use crate::time::femto::{FS_PER_DAY, ratio_to_f64, seconds_to_fs};
-use crate::time::{Epoch, TimeError, TimeScale, TimeScales};
+use crate::time::{Epoch, TimeError, TimeScale, TimeScales, tdb_fs_from_parts};
 
 /// Speed of light, m/s.
 const C_M_S: f64 = crate::time::clock_rate::C_M_S;
@@ -149,7 +149,7 @@ impl EarthModel {
             eop.dy_rad = 0.0;
         }
         let tt = self.time.convert(*utc, TimeScale::Tt, 0.0).map_err(|source| EarthError::Time { context: "UTC → TT".into(), source })?;
-        let tai_fs = self.time.tt_fs(utc, 0.0).map_err(|source| EarthError::Time { context: "UTC → TAI".into(), source })? - crate::time::TT_MINUS_TAI_FS;
+        let tai_fs = tt.label_fs() - crate::time::TT_MINUS_TAI_FS;
         let ut1_fs = tai_fs + seconds_to_fs(eop.ut1_minus_tai_s).unwrap_or(0);
         let ut1 = Epoch::from_uniform_fs(TimeScale::Ut1, ut1_fs).map_err(|source| EarthError::Time { context: "UT1".into(), source })?;
         let r = itrs_to_gcrs(jd_parts(&tt), jd_parts(&ut1), self.cip_at(&tt), &eop);
@@ -191,15 +191,12 @@ impl EarthModel {
         let (x_gcrs, v_gcrs, up_gcrs, eop, tt) = self.station_gcrs_with_up(station, utc)?;
         // TDB − TT = Δ_geo(TT) + observer term (IERS Conventions 2010 eq. 10.9):
         // the 787-term series depends on TT only, so it is evaluated once for
-        // both the geocentric and the topocentric TDB (same formula and
-        // rounding as TimeScales::convert).
+        // both the geocentric and the topocentric TDB.
         let dtdb_geo_s = self.time.tdb_minus_tt_geocentric_s(tt.label_fs());
         let tdb_at = |obs_s: f64| -> Result<Epoch, EarthError> {
-            let d = seconds_to_fs(dtdb_geo_s + obs_s).ok_or_else(|| EarthError::Time {
-                context: "TT → TDB".into(),
-                source: TimeError::NonFinite { what: "TDB − TT (s)".into(), value: dtdb_geo_s + obs_s },
-            })?;
-            Epoch::from_uniform_fs(TimeScale::Tdb, tt.label_fs() + d).map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })
+            tdb_fs_from_parts(tt.label_fs(), dtdb_geo_s, obs_s)
+                .and_then(|fs| Epoch::from_uniform_fs(TimeScale::Tdb, fs))
+                .map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })
         };
         let geo_tdb = tdb_at(0.0)?;
         let earth_geo = eph.state_ssb(399, &TdbSeconds::from_epoch(&geo_tdb)?)?;
@@ -230,39 +227,23 @@ impl EarthModel {
         })
     }
 
-    /// The topocentric part of TDB − TT (s) for a station at an epoch given
-    /// in any scale, and the EOP values used.
+    /// The station state at an epoch given in any scale (at the station).
     ///
-    /// For TDB and TCB epochs the conversion to UTC itself needs the term, so
-    /// it is iterated: the term changes by < 2e-10 s per second of time, and
-    /// the first guess (geocentre) is off by ≤ 2.1 µs, so two passes agree
-    /// to < 1e-15 s.
-    pub fn observer_term_at(&self, eph: &Ephemeris, station: &Station, e: &Epoch) -> Result<(f64, EopValues), EarthError> {
-        let mut term_s = 0.0;
-        let mut eop = None;
-        for _ in 0..2 {
-            let utc = self.time.convert(*e, TimeScale::Utc, term_s).map_err(|source| EarthError::Time { context: "epoch → UTC".into(), source })?;
-            let st = self.station_state(eph, station, &utc)?;
-            term_s = st.observer_term_s;
-            eop = Some(st.eop);
+    /// For TDB and TCB epochs the UTC of the event needs the observer term,
+    /// which needs the station's position, so the conversion is iterated:
+    /// the term changes by < 2e-10 s per second of time and the first guess
+    /// (geocentre) is off by ≤ 2.1 µs, so two passes agree to < 1e-15 s.
+    /// Other scales convert to UTC without the term: one pass.
+    ///
+    /// # Accuracy
+    /// See [`Self::station_state`].
+    pub fn station_state_at(&self, eph: &Ephemeris, station: &Station, e: &Epoch) -> Result<StationState, EarthError> {
+        let to_utc = |term_s: f64| self.time.convert(*e, TimeScale::Utc, term_s).map_err(|source| EarthError::Time { context: format!("{} → UTC", e.scale()), source });
+        let first = self.station_state(eph, station, &to_utc(0.0)?)?;
+        if !matches!(e.scale(), TimeScale::Tdb | TimeScale::Tcb) {
+            return Ok(first);
         }
-        Ok((term_s, eop.expect("loop ran")))
-    }
-
-    /// The station state at a TDB epoch (at the station): the UTC of that
-    /// event needs the observer term, which needs the station's position, so
-    /// the conversion is iterated (two passes agree to < 1e-15 s; see
-    /// [`Self::observer_term_at`]).
-    pub fn station_state_at_tdb(&self, eph: &Ephemeris, station: &Station, tdb: &Epoch) -> Result<StationState, EarthError> {
-        let mut term_s = 0.0;
-        let mut state = None;
-        for _ in 0..2 {
-            let utc = self.time.convert(*tdb, TimeScale::Utc, term_s).map_err(|source| EarthError::Time { context: "TDB → UTC".into(), source })?;
-            let st = self.station_state(eph, station, &utc)?;
-            term_s = st.observer_term_s;
-            state = Some(st);
-        }
-        Ok(state.expect("loop ran"))
+        self.station_state(eph, station, &to_utc(first.observer_term_s)?)
     }
 
     /// UT1 − UTC at a UTC epoch, seconds.

@@ -198,6 +198,23 @@ pub struct TimeScales {
     tdb_grid: Option<std::sync::Arc<super::relativistic::TdbGrid>>,
 }
 
+/// TDB (fs since MJD 0) from TT (fs) and the two parts of TDB − TT: the
+/// geocentric series value and the observer term v_E · x / c², both in
+/// seconds. Every TT → TDB step goes through here, so callers that evaluate
+/// the series once for several observer terms round exactly like
+/// [`TimeScales::convert`].
+///
+/// # Accuracy
+/// Rounding of the sum to the femtosecond.
+///
+/// # References
+/// IERS Conventions 2010, ch. 10, eq. 10.9.
+pub fn tdb_fs_from_parts(tt_fs: i128, geocentric_s: f64, observer_s: f64) -> Result<i128, TimeError> {
+    let d = geocentric_s + observer_s;
+    let d_fs = seconds_to_fs(d).ok_or_else(|| TimeError::NonFinite { what: "observer TDB − TT term (s)".into(), value: observer_s })?;
+    Ok(tt_fs + d_fs)
+}
+
 impl TimeScales {
     /// With the leap-second table built into lapse.
     pub fn builtin() -> Self {
@@ -354,9 +371,7 @@ impl TimeScales {
     }
 
     fn tdb_fs_of_tt_fs(&self, tt_fs: i128, observer_s: f64) -> Result<i128, TimeError> {
-        let d = self.tdb_minus_tt_s(tt_fs, observer_s);
-        let d_fs = seconds_to_fs(d).ok_or_else(|| TimeError::NonFinite { what: "observer TDB − TT term (s)".into(), value: observer_s })?;
-        Ok(tt_fs + d_fs)
+        tdb_fs_from_parts(tt_fs, self.tdb_minus_tt_geocentric_s(tt_fs), observer_s)
     }
 
     /// Inverse of `tdb_fs_of_tt_fs`: solves TDB = TT + Δ(TT) for TT by fixed

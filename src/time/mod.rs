@@ -16,7 +16,7 @@ pub mod leap;
 mod parse;
 pub mod relativistic;
 
-pub use epoch::{Epoch, TAI_MINUS_GPS_FS, TT_MINUS_TAI_FS, TimeScale, TimeScales, Ut1Source};
+pub use epoch::{Epoch, TAI_MINUS_GPS_FS, TT_MINUS_TAI_FS, TimeScale, TimeScales, Ut1Source, tdb_fs_from_parts};
 pub use error::TimeError;
 pub use leap::{ExpiryPolicy, LeapSecondTable};
 pub use parse::parse_epoch;

@@ -208,11 +208,11 @@ impl TrackingContext {
         let t2s = TdbSeconds::from_epoch(&t2).map_err(|e| e.to_string())?;
         let sh_up = ShapiroSet::for_receiver(&self.ephemeris, &self.shapiro, self.ppn_gamma, &t2s, &x_sc)?;
         let up = solve_backward(&t2, &x_sc, &sh_up, |t| {
-            let s = self.earth.station_state_at_tdb(&self.ephemeris, tx, t).map_err(|e| format!("geometry unavailable: {e}"))?;
+            let s = self.earth.station_state_at(&self.ephemeris, tx, t).map_err(|e| format!("geometry unavailable: {e}"))?;
             Ok((s.bcrs_position_m, s.bcrs_velocity_m_s))
         })
         .map_err(|e| format!("up leg: {e}"))?;
-        let st_tx = self.earth.station_state_at_tdb(&self.ephemeris, tx, &up.t_tx).map_err(|e| format!("geometry unavailable: {e}"))?;
+        let st_tx = self.earth.station_state_at(&self.ephemeris, tx, &up.t_tx).map_err(|e| format!("geometry unavailable: {e}"))?;
         let clock_tx_s = ratio_to_f64(st_tx.tdb.label_fs() - st_tx.tt.label_fs(), FS_PER_S);
         let tx_utc = self.earth.time.convert(up.t_tx, TimeScale::Utc, st_tx.observer_term_s).map_err(|e| e.to_string())?;
         let trop_tx = match &self.troposphere {
