@@ -11,7 +11,6 @@
 use std::path::PathBuf;
 
 use polars::prelude::*;
-use rayon::prelude::*;
 use serde::Deserialize;
 
 use super::{PipelineError, PipelineFile, RunSummary, assemble, check_unique_ids};
@@ -99,10 +98,7 @@ pub fn run_timescales(file: &PipelineFile, opts: &super::RunOptions) -> Result<R
 
     let n = df.height();
     let rows: Vec<usize> = (0..n).collect();
-    let results: Vec<RowResult> = rows
-        .par_chunks(opts.chunk_rows)
-        .flat_map_iter(|chunk| chunk.iter().map(|&i| convert_row(&ts, in_scale, &out_scales, days[i], fracs[i])))
-        .collect();
+    let results: Vec<RowResult> = super::par_map_chunks(&rows, opts.chunk_rows, opts.progress.as_deref(), |&i| convert_row(&ts, in_scale, &out_scales, days[i], fracs[i]));
 
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<&(Vec<(i64, f64)>, f64, f64)> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
@@ -125,8 +121,8 @@ pub fn run_timescales(file: &PipelineFile, opts: &super::RunOptions) -> Result<R
     prov.set("input.leap_seconds.table", ts.leap_seconds().source_name());
     prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
     let metadata = prov.finish();
-    write_parquet(&mut out, &output_path, &metadata)?;
     write_parquet(&mut rejects, &summary.rejects, &metadata)?;
+    write_parquet(&mut out, &output_path, &metadata)?;
     let (min_tdb_tt, max_tdb_tt) = good.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), g| (a.min(g.2), b.max(g.2)));
     if !good.is_empty() {
         summary.notes.push(format!("TDB − TT (geocentric) over the batch: {min_tdb_tt:+.9e} s … {max_tdb_tt:+.9e} s"));
