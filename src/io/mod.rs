@@ -151,3 +151,60 @@ impl<'a> Columns<'a> {
         Ok(ca.iter().map(|v| v.map(str::to_string)).collect())
     }
 }
+
+/// One data line of a small comma-separated table: its 1-based line number
+/// and its trimmed fields (as many as the header has).
+#[derive(Debug)]
+pub struct CsvLine<'a> {
+    pub line: usize,
+    pub fields: Vec<&'a str>,
+}
+
+/// Splits a small comma-separated text table (plans, clock corrections):
+/// blank lines and `#` comments are skipped, the first other line must be
+/// exactly `header`, and every later line must have as many fields.
+///
+/// # Errors
+/// `(line, reason)` for a wrong header or field count; callers wrap it in
+/// their own error with the path.
+pub fn csv_lines<'a>(text: &'a str, header: &[&str]) -> Result<Vec<CsvLine<'a>>, (usize, String)> {
+    let mut out = Vec::new();
+    let mut header_seen = false;
+    for (i, raw) in text.lines().enumerate() {
+        let l = raw.trim();
+        if l.is_empty() || l.starts_with('#') {
+            continue;
+        }
+        let fields: Vec<&str> = l.split(',').map(str::trim).collect();
+        if !header_seen {
+            if fields != header {
+                return Err((i + 1, format!("expected the header '{}', found '{l}'", header.join(","))));
+            }
+            header_seen = true;
+            continue;
+        }
+        if fields.len() != header.len() {
+            return Err((i + 1, format!("expected {} fields ({}), found {}", header.len(), header.join(", "), fields.len())));
+        }
+        out.push(CsvLine { line: i + 1, fields });
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod csv_tests {
+    use super::*;
+
+    #[test]
+    fn csv_lines_skips_comments_and_checks_shape() {
+        let t = "# note\n\n a , b \n1,2\n# mid\n 3 ,4\n";
+        let rows = csv_lines(t, &["a", "b"]).unwrap();
+        assert_eq!(rows.len(), 2);
+        assert_eq!((rows[1].line, rows[1].fields.clone()), (6, vec!["3", "4"]));
+        assert_eq!(csv_lines("x,y\n", &["a", "b"]).unwrap_err().0, 1);
+        let e = csv_lines("a,b\n1,2,3\n", &["a", "b"]).unwrap_err();
+        assert_eq!(e.0, 2);
+        assert!(e.1.contains("expected 2 fields"), "{}", e.1);
+        assert!(csv_lines("", &["a"]).unwrap().is_empty());
+    }
+}

@@ -111,10 +111,11 @@ struct ResidualsCfg {
     subtract_weighted_mean: bool,
 }
 
+/// `[output]`: where the results table goes (rejects beside it).
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
-struct OutputCfg {
-    path: PathBuf,
+pub struct OutputCfg {
+    pub path: PathBuf,
 }
 
 /// The configuration of a `pulsar` pipeline.
@@ -697,24 +698,9 @@ pub fn read_plan(path: &Path) -> Result<Vec<PlanRow>, PipelineError> {
     let text = std::fs::read_to_string(path).map_err(|source| PipelineError::Read { path: path.into(), source })?;
     let bad = |line: usize, m: String| PipelineError::Invalid { path: path.into(), message: format!("line {line}: {m}") };
     let mut rows = Vec::new();
-    let mut header = false;
-    for (i, raw) in text.lines().enumerate() {
-        let l = raw.trim();
-        if l.is_empty() || l.starts_with('#') {
-            continue;
-        }
-        let f: Vec<&str> = l.split(',').map(str::trim).collect();
-        if !header {
-            if f != ["site", "mjd", "freq_mhz", "sigma_us"] {
-                return Err(bad(i + 1, format!("expected the header 'site,mjd,freq_mhz,sigma_us', found '{l}'")));
-            }
-            header = true;
-            continue;
-        }
-        if f.len() != 4 {
-            return Err(bad(i + 1, format!("expected 4 fields, found {}", f.len())));
-        }
-        let num = |s: &str, w: &str| s.parse::<f64>().map_err(|_| bad(i + 1, format!("{w} '{s}' is not a number")));
+    for row in crate::io::csv_lines(&text, &["site", "mjd", "freq_mhz", "sigma_us"]).map_err(|(line, m)| bad(line, m))? {
+        let f = &row.fields;
+        let num = |s: &str, w: &str| s.parse::<f64>().map_err(|_| bad(row.line, format!("{w} '{s}' is not a number")));
         rows.push(PlanRow { site: f[0].to_string(), mjd: num(f[1], "mjd")?, freq_mhz: num(f[2], "freq_mhz")?, sigma_us: num(f[3], "sigma_us")? });
     }
     Ok(rows)

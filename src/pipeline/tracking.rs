@@ -8,7 +8,7 @@ use std::path::{Path, PathBuf};
 use polars::prelude::*;
 use serde::Deserialize;
 
-use super::pulsar::{EarthCfg, EphemerisCfg, SharedInputs, StationsCfg, load_shared};
+use super::pulsar::{EarthCfg, EphemerisCfg, OutputCfg, SharedInputs, StationsCfg, load_shared};
 use super::{PipelineError, PipelineFile, Provenance, RunOptions, RunSummary, assemble, check_unique_ids, rejects_path};
 use crate::constants::Constants;
 use crate::delays::shapiro_bodies;
@@ -56,12 +56,6 @@ struct TroposphereCfg {
     enabled: bool,
     #[serde(default)]
     stations: BTreeMap<String, crate::tracking::troposphere::SurfaceMet>,
-}
-
-#[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
-struct OutputCfg {
-    path: PathBuf,
 }
 
 /// The configuration of a `tracking` pipeline.
@@ -340,24 +334,9 @@ pub fn synthesize_tracking(file: &PipelineFile, plan: &Path, out: &Path, noise: 
     let text = std::fs::read_to_string(plan).map_err(|source| PipelineError::Read { path: plan.into(), source })?;
     let bad = |line: usize, m: String| PipelineError::Invalid { path: plan.into(), message: format!("line {line}: {m}") };
     let (mut kind, mut rx, mut tx, mut day, mut frac, mut count, mut up, mut sig) = (vec![], vec![], vec![], vec![], vec![], vec![], vec![], vec![]);
-    let mut header = false;
-    for (i, raw) in text.lines().enumerate() {
-        let l = raw.trim();
-        if l.is_empty() || l.starts_with('#') {
-            continue;
-        }
-        let f: Vec<&str> = l.split(',').map(str::trim).collect();
-        if !header {
-            if f != ["kind", "rx_station", "tx_station", "rx_mjd", "count_s", "uplink_hz", "sigma"] {
-                return Err(bad(i + 1, "expected the header 'kind,rx_station,tx_station,rx_mjd,count_s,uplink_hz,sigma'".into()));
-            }
-            header = true;
-            continue;
-        }
-        if f.len() != 7 {
-            return Err(bad(i + 1, format!("expected 7 fields, found {}", f.len())));
-        }
-        let num = |s: &str, w: &str| s.parse::<f64>().map_err(|_| bad(i + 1, format!("{w} '{s}' is not a number")));
+    for row in crate::io::csv_lines(&text, &["kind", "rx_station", "tx_station", "rx_mjd", "count_s", "uplink_hz", "sigma"]).map_err(|(line, m)| bad(line, m))? {
+        let f = &row.fields;
+        let num = |s: &str, w: &str| s.parse::<f64>().map_err(|_| bad(row.line, format!("{w} '{s}' is not a number")));
         let mjd = num(f[3], "rx_mjd")?;
         kind.push(Some(f[0].to_string()));
         rx.push(Some(f[1].to_string()));

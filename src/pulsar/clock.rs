@@ -56,35 +56,19 @@ impl ClockTable {
         let err = |line: usize, reason: String| ClockError::Format { path: path.into(), line, reason };
         let mut mjd = Vec::new();
         let mut offset_s = Vec::new();
-        let mut header_seen = false;
-        for (i, raw) in text.lines().enumerate() {
-            let line = raw.trim();
-            if line.is_empty() || line.starts_with('#') {
-                continue;
-            }
-            if !header_seen {
-                let cols: Vec<&str> = line.split(',').map(str::trim).collect();
-                if cols != ["mjd", "offset_s"] {
-                    return Err(err(i + 1, format!("expected the header 'mjd,offset_s', found '{line}'")));
-                }
-                header_seen = true;
-                continue;
-            }
-            let f: Vec<&str> = line.split(',').map(str::trim).collect();
-            if f.len() != 2 {
-                return Err(err(i + 1, format!("expected 2 fields (mjd, offset_s), found {}", f.len())));
-            }
-            let m: f64 = f[0].parse().map_err(|_| err(i + 1, format!("MJD '{}' is not a number", f[0])))?;
-            let o: f64 = f[1].parse().map_err(|_| err(i + 1, format!("offset '{}' is not a number", f[1])))?;
+        for row in crate::io::csv_lines(text, &["mjd", "offset_s"]).map_err(|(line, reason)| err(line, reason))? {
+            let (f, line) = (&row.fields, row.line);
+            let m: f64 = f[0].parse().map_err(|_| err(line, format!("MJD '{}' is not a number", f[0])))?;
+            let o: f64 = f[1].parse().map_err(|_| err(line, format!("offset '{}' is not a number", f[1])))?;
             if !m.is_finite() || !o.is_finite() {
-                return Err(err(i + 1, "non-finite value".into()));
+                return Err(err(line, "non-finite value".into()));
             }
             if o.abs() > 1.0 {
-                return Err(err(i + 1, format!("offset {o} s exceeds 1 s: not a clock correction")));
+                return Err(err(line, format!("offset {o} s exceeds 1 s: not a clock correction")));
             }
             if let Some(&prev) = mjd.last() {
                 if m <= prev {
-                    return Err(err(i + 1, format!("MJD {m} is not after {prev}")));
+                    return Err(err(line, format!("MJD {m} is not after {prev}")));
                 }
             }
             mjd.push(m);
