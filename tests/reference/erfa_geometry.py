@@ -108,3 +108,14 @@ for st in stations:
     st["vel"] = np.array(st.get("velocity_m_per_yr", [0.0, 0.0, 0.0]))
     st["epoch"] = st.get("epoch_mjd", 51544.5)
 
+
+# UTC days (MJD) that end in a leap second, 2005-2016 (IERS Bulletin C;
+# the same days as the leap-second table lapse uses). The random geometry
+# sweeps skip them and keep to 86 400 s days.
+LEAP_DAYS = frozenset({53735, 54831, 56108, 57203, 57753})
+
+
+def station_itrs_m(st, day, frac):
+    """ITRF position (m) of a demo station at UTC MJD day + frac, moved
+    linearly by its plate velocity (m per Julian year) from its epoch."""
+    return st["xyz"] + st["vel"] * ((day + frac - st["epoch"]) / 365.25)

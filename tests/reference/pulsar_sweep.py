@@ -28,12 +28,11 @@ import jplephem
 import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from erfa_geometry import C_M_S, gcrs, kernel, root, stations  # noqa: E402
+from erfa_geometry import LEAP_DAYS, C_M_S, gcrs, kernel, root, station_itrs_m, stations  # noqa: E402
 
 out = sys.argv[1] if len(sys.argv) > 1 else "tests/fixtures"
 AU_M = 149597870700.0
 gm_sun = tomllib.load(open(os.path.join(root, "data", "constants.toml"), "rb"))["ephemeris"]["gm_km3_s2"]["sun"] * 1e9
-leap_days = {53735, 54831, 56108, 57203, 57753}
 rng = np.random.default_rng(1967)
 
 
@@ -52,10 +51,10 @@ with open(os.path.join(out, "pulsar_sweep.csv"), "w") as f:
         frac = float(rng.random())
         ra = float(rng.uniform(0.0, 360.0))
         dec = math.degrees(math.asin(float(rng.uniform(-1.0, 1.0))))
-        if day in leap_days:
+        if day in LEAP_DAYS:
             continue
         st = stations[k % len(stations)]
-        itrs = st["xyz"] + st["vel"] * ((day + frac - st["epoch"]) / 365.25)
+        itrs = station_itrs_m(st, day, frac)
         u1 = 2400000.5 + day
         x_gcrs, _ = gcrs(u1, frac, day, frac, itrs)
         a1, a2 = erfa.utctai(u1, frac)
