@@ -1,13 +1,12 @@
 //! The `lapse` binary: exit codes and messages, never a panic.
 
+mod common;
+use common::*;
+
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::process::Output;
 
 use polars::prelude::*;
-
-fn lapse(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_lapse")).args(args).output().expect("run lapse")
-}
 
 fn text(o: &Output) -> (String, String) {
     (String::from_utf8_lossy(&o.stdout).into_owned(), String::from_utf8_lossy(&o.stderr).into_owned())
@@ -18,13 +17,6 @@ fn assert_clean_error(o: &Output, needle: &str) {
     assert_eq!(o.status.code(), Some(2), "stdout: {out}\nstderr: {err}");
     assert!(err.contains(needle), "expected '{needle}' in stderr: {err}");
     assert!(!err.contains("panicked"), "panic: {err}");
-}
-
-fn tmpdir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("lapse-cli-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
 }
 
 #[test]
@@ -141,10 +133,6 @@ fn pipeline_errors_are_clean() {
     let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"typed.parquet\"\n[output]\npath = \"o.parquet\"\n");
     assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "column 'mjd_day' has type");
     assert_clean_error(&lapse(&["run", "/no/such/pipeline.toml"]), "/no/such/pipeline.toml");
-}
-
-fn data(p: &str) -> String {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join(p).to_string_lossy().into_owned()
 }
 
 #[test]

@@ -6,14 +6,13 @@
 //! longer campaign in the closing notes used 20 000). Coverage-guided
 //! targets for cargo-fuzz (nightly toolchain) are kept in `fuzz/`.
 
+mod common;
+use common::*;
+
 use std::path::Path;
 
 use proptest::prelude::*;
 use proptest::test_runner::{Config, TestRunner};
-
-fn root() -> &'static Path {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-}
 
 fn cases() -> u32 {
     std::env::var("LAPSE_FUZZ_CASES").ok().and_then(|v| v.parse().ok()).unwrap_or(400)

@@ -5,6 +5,9 @@
 //! `tests/reference/station_sweep.py` (pyerfa 2.0.1.5). Versions are recorded
 //! in each fixture's first line.
 
+mod common;
+use common::*;
+
 use std::path::Path;
 
 use lapse::ephemeris::{Ephemeris, TdbSeconds};
@@ -14,20 +17,10 @@ const EPHEMERIS_POSITION_TOL_KM: f64 = 1e-6;
 /// Velocities against jplephem (jplephem differentiates the same series): 1 µm/s.
 const EPHEMERIS_VELOCITY_TOL_KM_S: f64 = 1e-9;
 
-fn root() -> &'static Path {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-}
-
-fn csv(name: &str) -> Vec<Vec<String>> {
-    let path = root().join("tests/fixtures").join(name);
-    let text = std::fs::read_to_string(&path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
-    text.lines().filter(|l| !l.starts_with('#')).skip(1).map(|l| l.split(',').map(str::to_string).collect()).collect()
-}
-
 #[test]
 fn de421_states_match_jplephem_1950_2050() {
     let eph = Ephemeris::load(&[root().join("data/de421.bsp")]).unwrap();
-    let rows = csv("ephemeris_sweep.csv");
+    let rows = fixture_csv("ephemeris_sweep.csv");
     assert!(rows.len() >= 12_000);
     let (mut max_p, mut max_v) = (0.0f64, 0.0f64);
     for r in &rows {
@@ -102,7 +95,7 @@ fn station_gcrs_matches_erfa_chain() {
     let model = earth_model();
     let grid_model = earth_model().with_cip_grid(47_800.0, 61_800.0);
     let cat = StationCatalog::from_file(&root().join("data/demo/stations.toml")).unwrap();
-    let rows = csv("station_sweep.csv");
+    let rows = fixture_csv("station_sweep.csv");
     assert!(rows.len() >= 1000);
     let f = |s: &str| s.parse::<f64>().unwrap();
     let (mut max_p, mut max_v, mut max_grid, mut max_itrf, mut max_obs) = (0.0f64, 0.0f64, 0.0f64, 0.0f64, 0.0f64);
@@ -162,7 +155,7 @@ fn station_bcrs_matches_astropy() {
     model.pole_offsets = false;
     let eph = Ephemeris::load(&[root().join("data/de421.bsp")]).unwrap();
     let cat = StationCatalog::from_file(&root().join("data/demo/stations.toml")).unwrap();
-    let rows = csv("bcrs_astropy.csv");
+    let rows = fixture_csv("bcrs_astropy.csv");
     assert!(rows.len() >= 300);
     let mut max_d: f64 = 0.0;
     let mut worst = String::new();
@@ -185,7 +178,7 @@ fn station_bcrs_matches_astropy() {
 #[test]
 fn era_matches_erfa() {
     // pyerfa era00 at 200 UT1 dates; same formula (IERS 2010 eq. 5.15).
-    for r in csv("era_sweep.csv") {
+    for r in fixture_csv("era_sweep.csv") {
         let (a, b, want) = (r[0].parse::<f64>().unwrap(), r[1].parse::<f64>().unwrap(), r[2].parse::<f64>().unwrap());
         assert!((sofars::erst::era00(a, b) - want).abs() < 1e-12);
     }

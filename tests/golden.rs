@@ -4,14 +4,11 @@
 //! Regenerate after an intended change: `LAPSE_BLESS=1 cargo test --release --test golden`
 //! (and say why in the commit message).
 
+mod common;
+use common::*;
+
 use std::path::{Path, PathBuf};
 use std::process::Command;
-
-use polars::prelude::*;
-
-fn read(p: &Path) -> DataFrame {
-    ParquetReader::new(std::fs::File::open(p).unwrap_or_else(|e| panic!("{}: {e}", p.display()))).finish().unwrap()
-}
 
 #[test]
 fn every_pipeline_matches_its_golden_output() {

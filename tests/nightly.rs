@@ -1,32 +1,12 @@
 //! Nightly operations: preflight, partitioned and resumable runs, plots.
 
+mod common;
+use common::*;
+
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output, Stdio};
+use std::process::{Command, Stdio};
 
 use polars::prelude::*;
-
-fn root() -> &'static Path {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-}
-
-fn lapse(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_lapse")).args(args).output().expect("run lapse")
-}
-
-fn tmpdir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("lapse-nightly-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn read(p: &Path) -> DataFrame {
-    ParquetReader::new(std::fs::File::open(p).unwrap()).finish().unwrap()
-}
-
-fn write(p: &Path, df: &mut DataFrame) {
-    ParquetWriter::new(std::fs::File::create(p).unwrap()).finish(df).unwrap();
-}
 
 /// The pulsar demo pipeline with absolute data paths, reading `input`
 /// (file, folder or glob) and writing `output`; weighted-mean removal off so
@@ -69,19 +49,6 @@ fn make_partitions(dir: &Path, parts: usize, copies: usize) -> DataFrame {
         write(&dir.join("in").join(format!("night-{k:02}.parquet")), &mut part);
     }
     all
-}
-
-fn data_bits(df: &DataFrame) -> Vec<(String, Vec<String>)> {
-    df.columns()
-        .iter()
-        .map(|c| {
-            let v: Vec<String> = match c.dtype() {
-                DataType::Float64 => c.f64().unwrap().iter().map(|v| format!("{:?}", v.map(f64::to_bits))).collect(),
-                _ => c.cast(&DataType::String).unwrap().str().unwrap().iter().map(|v| format!("{v:?}")).collect(),
-            };
-            (c.name().to_string(), v)
-        })
-        .collect()
 }
 
 #[test]
@@ -147,7 +114,7 @@ fn partitioned_run_equals_single_file_run_and_skips_up_to_date_partitions() {
     for p in &parts[1..] {
         joined.vstack_mut(p).unwrap();
     }
-    assert_eq!(data_bits(&joined), data_bits(&single));
+    assert_eq!(column_bits(&joined), column_bits(&single));
     // A rerun skips every partition; a changed pipeline redoes them all.
     let o = lapse(&["run", p_part.to_str().unwrap(), "--no-plots"]);
     assert!(String::from_utf8_lossy(&o.stdout).contains("partitions 0 processed, 4 up to date"), "{}", String::from_utf8_lossy(&o.stdout));
@@ -202,7 +169,7 @@ fn killed_run_resumes_to_the_same_outputs() {
     for k in 0..8 {
         let name = format!("night-{k:02}.parquet");
         let (a, b) = (read(&d.join("out").join(&name)), read(&d.join("ref").join(&name)));
-        assert_eq!(data_bits(&a), data_bits(&b), "{name}");
+        assert_eq!(column_bits(&a), column_bits(&b), "{name}");
         let md = |p: &Path| -> Vec<(String, String)> {
             lapse::io::read_parquet_metadata(p).unwrap().into_iter().filter(|(k, _)| k != "lapse.run.started_utc" && !k.ends_with(".path") && k != "lapse.pipeline.text" && k != "lapse.pipeline.sha256").collect()
         };
@@ -252,8 +219,8 @@ fn streamed_partitions_equal_in_memory_ones() {
         .output()
         .unwrap();
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
-    assert_eq!(data_bits(&read(&b)), data_bits(&read(&root().join("tests/golden/pulsar_demo.parquet"))));
-    assert_eq!(data_bits(&read(&d.join("stream.rejects.parquet"))), data_bits(&read(&d.join("mem.rejects.parquet"))));
+    assert_eq!(column_bits(&read(&b)), column_bits(&read(&root().join("tests/golden/pulsar_demo.parquet"))));
+    assert_eq!(column_bits(&read(&d.join("stream.rejects.parquet"))), column_bits(&read(&d.join("mem.rejects.parquet"))));
     let md = |p: &Path| -> Vec<(String, String)> { lapse::io::read_parquet_metadata(p).unwrap().into_iter().filter(|(k, _)| k != "lapse.run.started_utc").collect() };
     assert_eq!(md(&a), md(&b));
     assert!(d.join("stream.residuals.png").exists());

@@ -4,8 +4,10 @@
 //! Reference fixture: `tests/reference/pulsar_sweep.py` (pyerfa 2.0.1.5,
 //! jplephem 2.24 on DE421; versions in the fixture's first line).
 
+mod common;
+use common::*;
+
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
 
 use lapse::delays::Source;
 use lapse::pipeline::PipelineFile;
@@ -22,17 +24,6 @@ const SHAPIRO_SUN_TOL_S: f64 = 1e-12;
 /// Residual RMS of noiseless synthetic arrival times: issue 1 ns.
 const SYNTH_RMS_TOL_S: f64 = 1e-9;
 
-fn root() -> &'static Path {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-}
-
-fn tmpdir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("lapse-pulsar-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
 /// The demo pipeline with absolute data paths, another input and output, and
 /// optional line replacements.
 fn pipeline(dir: &Path, input: &Path, replace: &[(&str, &str)]) -> PathBuf {
@@ -48,14 +39,6 @@ fn pipeline(dir: &Path, input: &Path, replace: &[(&str, &str)]) -> PathBuf {
     let p = dir.join("pipeline.toml");
     std::fs::write(&p, text).unwrap();
     p
-}
-
-fn lapse(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_lapse")).args(args).output().expect("run lapse")
-}
-
-fn read(p: &Path) -> DataFrame {
-    ParquetReader::new(std::fs::File::open(p).unwrap()).finish().unwrap()
 }
 
 fn f64s(df: &DataFrame, c: &str) -> Vec<f64> {

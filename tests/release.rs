@@ -1,42 +1,11 @@
 //! Release validation: bit-reproducible runs, provenance, and `lapse diff`.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+use common::*;
+
+use std::path::Path;
 
 use polars::prelude::*;
-
-fn root() -> &'static Path {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-}
-
-fn tmpdir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("lapse-release-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
-fn lapse(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_lapse")).args(args).output().expect("run lapse")
-}
-
-fn read(p: &Path) -> DataFrame {
-    ParquetReader::new(std::fs::File::open(p).unwrap()).finish().unwrap()
-}
-
-/// Every value of every column as bits (floats by bit pattern), for exact comparison.
-fn column_bits(df: &DataFrame) -> Vec<(String, Vec<String>)> {
-    df.columns()
-        .iter()
-        .map(|c| {
-            let vals: Vec<String> = match c.dtype() {
-                DataType::Float64 => c.f64().unwrap().iter().map(|v| format!("{:?}", v.map(f64::to_bits))).collect(),
-                _ => c.cast(&DataType::String).unwrap().str().unwrap().iter().map(|v| format!("{v:?}")).collect(),
-            };
-            (c.name().to_string(), vals)
-        })
-        .collect()
-}
 
 #[test]
 fn runs_are_bit_reproducible_across_threads_and_chunks() {
@@ -99,10 +68,6 @@ fn provenance_is_complete_and_printable() {
     let text = String::from_utf8_lossy(&o.stdout);
     assert_eq!(o.status.code(), Some(0));
     assert!(text.contains("input.kernel.0.sha256") && text.contains("a20a7139da04cbc4") && text.contains("# pipeline text"), "{text}");
-}
-
-fn write(p: &Path, df: &mut DataFrame) {
-    ParquetWriter::new(std::fs::File::create(p).unwrap()).finish(df).unwrap();
 }
 
 #[test]

@@ -3,8 +3,10 @@
 //! Fixtures: `tests/reference/tracking_sweep.py` (spiceypy 8.3.0, CSPICE
 //! N0067; version in each fixture's first line).
 
+mod common;
+use common::*;
+
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
 
 use lapse::delays::shapiro_bodies;
 use lapse::ephemeris::{Ephemeris, TdbSeconds};
@@ -23,13 +25,8 @@ const LIGHT_TIME_TOL_S: f64 = 5e-12;
 /// Solar Shapiro delay against the closed formula with SPICE positions: issue 1 ps.
 const SHAPIRO_TOL_S: f64 = 1e-12;
 
-fn root() -> &'static Path {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-}
-
 fn csv(name: &str) -> Vec<Vec<f64>> {
-    let text = std::fs::read_to_string(root().join("tests/fixtures").join(name)).unwrap();
-    text.lines().filter(|l| !l.starts_with('#')).skip(1).map(|l| l.split(',').map(|x| x.parse().unwrap()).collect()).collect()
+    fixture_csv(name).iter().map(|r| r.iter().map(|x| x.parse().unwrap()).collect()).collect()
 }
 
 fn eph() -> Ephemeris {
@@ -155,17 +152,6 @@ fn gps_clock_facts() {
     assert!((term - icd).abs() < 1e-12, "{term} vs {icd}");
 }
 
-fn lapse(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_lapse")).args(args).output().expect("run lapse")
-}
-
-fn tmpdir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("lapse-tracking-{}-{name}", std::process::id()));
-    let _ = std::fs::remove_dir_all(&d);
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
 fn pipeline(dir: &Path, input: &Path) -> PathBuf {
     let mut text = std::fs::read_to_string(root().join("pipelines/tracking_demo.toml")).unwrap();
     let data = root().join("data").display().to_string();
@@ -175,10 +161,6 @@ fn pipeline(dir: &Path, input: &Path) -> PathBuf {
     let p = dir.join("p.toml");
     std::fs::write(&p, text).unwrap();
     p
-}
-
-fn read(p: &Path) -> DataFrame {
-    ParquetReader::new(std::fs::File::open(p).unwrap()).finish().unwrap()
 }
 
 #[test]
