@@ -393,6 +393,12 @@ impl TimeScales {
     /// same scale. UTC epochs move through TAI, so day ends and leap seconds
     /// are crossed correctly.
     ///
+    /// # Accuracy
+    /// Exact but for rounding the shift to the femtosecond.
+    ///
+    /// # References
+    /// ITU-R TF.460-6 (UTC steps by whole leap seconds; TAI is uniform).
+    ///
     /// # Errors
     /// A non-finite shift, or UTC outside the leap-second table.
     pub fn add_seconds(&self, e: Epoch, delta_s: f64) -> Result<Epoch, TimeError> {
