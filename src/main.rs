@@ -29,6 +29,10 @@ enum Command {
     Run {
         /// The pipeline TOML file.
         pipeline: PathBuf,
+        /// Read this input (file, folder or glob) instead of the pipeline's
+        /// [input] path — one partition per job on a cluster.
+        #[arg(long)]
+        input: Option<PathBuf>,
         /// Write the output here instead of the pipeline's [output] path.
         #[arg(long)]
         output: Option<PathBuf>,
@@ -187,10 +191,10 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             print!("{}", report.render());
             Ok(ExitCode::from(report.exit_code()))
         }
-        Command::Run { pipeline, output, threads, chunk_rows, no_plots } => {
+        Command::Run { pipeline, input, output, threads, chunk_rows, no_plots } => {
             // The same checks as `lapse check`, first: stop when unusable,
             // report problems (their rows will be rejected with reasons).
-            let report = lapse::pipeline::preflight::preflight(&pipeline);
+            let report = lapse::pipeline::preflight::preflight_input(&pipeline, input.as_deref());
             match report.exit_code() {
                 2 => {
                     eprint!("{}", report.render());
@@ -205,9 +209,9 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
                 _ => {}
             }
             let progress = std::sync::Arc::new(std::sync::atomic::AtomicUsize::new(0));
-            let opts = lapse::pipeline::RunOptions { output, chunk_rows, plots: !no_plots, progress: Some(progress.clone()) };
+            let opts = lapse::pipeline::RunOptions { input: input.clone(), output, chunk_rows, plots: !no_plots, progress: Some(progress.clone()) };
             let done = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
-            let watcher = (!cli.quiet).then(|| spawn_progress(&pipeline, progress, done.clone()));
+            let watcher = (!cli.quiet).then(|| spawn_progress(&pipeline, input.as_deref(), progress, done.clone()));
             let result = match threads {
                 Some(n) => {
                     let pool = rayon::ThreadPoolBuilder::new().num_threads(n).build().context("cannot start the worker threads")?;
@@ -312,10 +316,10 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
 
 /// Progress display: a bar with rows/s and time remaining on an interactive
 /// terminal (after the first second), periodic log lines otherwise.
-fn spawn_progress(pipeline: &std::path::Path, counter: std::sync::Arc<std::sync::atomic::AtomicUsize>, done: std::sync::Arc<std::sync::atomic::AtomicBool>) -> std::thread::JoinHandle<()> {
+fn spawn_progress(pipeline: &std::path::Path, input: Option<&std::path::Path>, counter: std::sync::Arc<std::sync::atomic::AtomicUsize>, done: std::sync::Arc<std::sync::atomic::AtomicBool>) -> std::thread::JoinHandle<()> {
     use std::io::IsTerminal;
     use std::sync::atomic::Ordering;
-    let total = lapse::pipeline::input_rows(pipeline).unwrap_or(0) as u64;
+    let total = lapse::pipeline::input_rows(pipeline, input).unwrap_or(0) as u64;
     let tty = std::io::stderr().is_terminal();
     std::thread::spawn(move || {
         let start = std::time::Instant::now();

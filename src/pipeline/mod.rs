@@ -4,6 +4,7 @@
 //! Paths in a pipeline are relative to the pipeline file's folder. Unknown
 //! keys are an error that names them.
 
+pub mod batch;
 pub mod preflight;
 pub mod pulsar;
 mod timescales;
@@ -19,7 +20,7 @@ use crate::io::IoError;
 use crate::time::TimeError;
 
 pub use pulsar::{LoadedPulsar, load_pulsar, run_pulsar};
-pub use timescales::{TimescalesPipeline, run_timescales};
+pub use timescales::{LoadedTimescales, TimescalesPipeline, load_timescales, run_timescales, timescales_batch};
 
 /// Errors of a pipeline run.
 #[derive(Debug, thiserror::Error)]
@@ -120,6 +121,9 @@ pub struct RunSummary {
 /// Options of a run that do not change its results.
 #[derive(Clone, Debug)]
 pub struct RunOptions {
+    /// Read this input (file, folder or glob) instead of the pipeline's
+    /// `[input] path` (one partition per job on a cluster).
+    pub input: Option<PathBuf>,
     /// Write here instead of the pipeline's `[output] path`.
     pub output: Option<PathBuf>,
     /// Rows per parallel work unit (results do not depend on it).
@@ -132,7 +136,7 @@ pub struct RunOptions {
 
 impl Default for RunOptions {
     fn default() -> Self {
-        Self { output: None, chunk_rows: DEFAULT_CHUNK_ROWS, plots: true, progress: None }
+        Self { input: None, output: None, chunk_rows: DEFAULT_CHUNK_ROWS, plots: true, progress: None }
     }
 }
 
@@ -436,11 +440,17 @@ where
 
 /// Total rows of a pipeline's input (all partitions), from Parquet metadata;
 /// `None` when the pipeline or its input cannot be read.
-pub fn input_rows(pipeline: &Path) -> Option<usize> {
-    let file = PipelineFile::read(pipeline).ok()?;
-    let table: toml::Table = toml::from_str(&file.text).ok()?;
-    let p = table.get("input")?.get("path")?.as_str()?;
-    let (files, _) = resolve_inputs(&file.resolve(Path::new(p))).ok()?;
+pub fn input_rows(pipeline: &Path, input: Option<&Path>) -> Option<usize> {
+    let path = match input {
+        Some(i) => i.to_path_buf(),
+        None => {
+            let file = PipelineFile::read(pipeline).ok()?;
+            let table: toml::Table = toml::from_str(&file.text).ok()?;
+            let p = table.get("input")?.get("path")?.as_str()?;
+            file.resolve(Path::new(p))
+        }
+    };
+    let (files, _) = resolve_inputs(&path).ok()?;
     let mut n = 0;
     for f in files {
         let fh = std::fs::File::open(&f).ok()?;

@@ -242,6 +242,12 @@ fn unknown_codes(p: &mut Preflight, cat: &StationCatalog, what: &str, codes: &BT
 
 /// Preflight of a pipeline file. Never fails: every failure is a finding.
 pub fn preflight(path: &Path) -> Preflight {
+    preflight_input(path, None)
+}
+
+/// Preflight of a pipeline file run on `input` (file, folder or glob)
+/// instead of its `[input] path` when given.
+pub fn preflight_input(path: &Path, input: Option<&Path>) -> Preflight {
     let mut p = Preflight::default();
     let file = match PipelineFile::read(path) {
         Ok(f) => f,
@@ -252,8 +258,8 @@ pub fn preflight(path: &Path) -> Preflight {
     };
     p.add(Level::Ok, format!("pipeline {} (kind {})", path.display(), file.kind));
     match file.kind.as_str() {
-        "pulsar" => preflight_pulsar(&file, &mut p),
-        "tracking" => preflight_tracking(&file, &mut p),
+        "pulsar" => preflight_pulsar(&file, input, &mut p),
+        "tracking" => preflight_tracking(&file, input, &mut p),
         _ => {
             if let Err(e) = file.parse::<super::TimescalesPipeline>() {
                 p.add(Level::Unusable, e.to_string());
@@ -263,7 +269,7 @@ pub fn preflight(path: &Path) -> Preflight {
     p
 }
 
-fn preflight_pulsar(file: &PipelineFile, p: &mut Preflight) {
+fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) {
     let lp = match super::pulsar::load_pulsar(file, None) {
         Ok(lp) => lp,
         Err(e) => return p.add(Level::Unusable, e.to_string()),
@@ -273,7 +279,7 @@ fn preflight_pulsar(file: &PipelineFile, p: &mut Preflight) {
     bodies.extend(lp.ctx.shapiro.iter().map(|b| b.naif_id));
     each_partition(
         p,
-        &lp.input_path,
+        input.unwrap_or(&lp.input_path),
         super::pulsar::read_pulsar_input,
         |facts, i| facts.add(&i.day, &i.frac, &i.site, None, None),
         |i| &i.obs_id,
@@ -302,7 +308,7 @@ fn preflight_pulsar(file: &PipelineFile, p: &mut Preflight) {
     );
 }
 
-fn preflight_tracking(file: &PipelineFile, p: &mut Preflight) {
+fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) {
     let lt = match super::tracking::load_tracking(file, None) {
         Ok(lt) => lt,
         Err(e) => return p.add(Level::Unusable, e.to_string()),
@@ -312,7 +318,7 @@ fn preflight_tracking(file: &PipelineFile, p: &mut Preflight) {
     bodies.extend(lt.ctx.shapiro.iter().map(|b| b.naif_id));
     each_partition(
         p,
-        &lt.input_path,
+        input.unwrap_or(&lt.input_path),
         super::tracking::read_tracking_input,
         |facts, i| facts.add(&i.day, &i.frac, &i.rx_station, Some(&i.tx_station), Some(&i.kind)),
         |i| &i.obs_id,

@@ -386,6 +386,9 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
 /// or glob, skipping partitions whose outputs are up to date).
 pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
     let mut lp = load_pulsar(file, opts.output.as_deref())?;
+    if let Some(i) = &opts.input {
+        lp.input_path = i.clone();
+    }
     lp.ctx.chunk_rows = opts.chunk_rows;
     lp.ctx.progress = opts.progress.clone();
     let mut base = shared_provenance(file, &lp.inputs, &lp.constants, &lp.ctx.shapiro, lp.ctx.ppn_gamma)?;
@@ -516,6 +519,28 @@ fn partition_plots(output_path: &Path, sites: &[String], bat_mjd: &[f64], residu
     crate::plots::residual_plots(output_path, "residuals", "pulsar timing residuals", "barycentric arrival time (MJD, TDB)", "residual (µs)", &groups).map_err(|message| PipelineError::Invalid { path: output_path.into(), message })
 }
 
+/// One batch, in memory: the output and rejects frames exactly as a run
+/// writes them (the weighted mean removed over the batch when the pipeline
+/// asks for it), the input columns and the offset removed. `source` names
+/// the batch in errors.
+fn pulsar_frames(lp: &mut LoadedPulsar, df: &DataFrame, source: &Path) -> Result<(PulsarInput, BatchFrames, f64), PipelineError> {
+    let input = read_pulsar_input(df, source)?;
+    check_unique_ids(&input.obs_id, source)?;
+    let results = compute_pulsar(lp, &input);
+    // Residuals: optional weighted-mean removal over the accepted rows.
+    let sigma_s: Vec<f64> = results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect();
+    let raw: Vec<f64> = results.iter().filter_map(|r| r.as_ref().ok()).map(|g| g.residual_s).collect();
+    let offset = if lp.subtract_weighted_mean { residual_summary(&raw, &sigma_s, false).weighted_mean_s } else { 0.0 };
+    let f = batch_frames(lp, df, &input, source, &results, offset)?;
+    Ok((input, f, offset))
+}
+
+/// Output and rejects of one in-memory batch (see [`crate::pipeline::batch`]).
+pub fn pulsar_batch(lp: &mut LoadedPulsar, df: &DataFrame, source: &Path) -> Result<(DataFrame, DataFrame), PipelineError> {
+    let (_, f, _) = pulsar_frames(lp, df, source)?;
+    Ok((f.out, f.rejects))
+}
+
 /// One partition of a pulsar run: in memory, or streamed in slices above
 /// [`STREAM_ABOVE_ROWS`] rows (same results, bounded memory).
 fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
@@ -524,14 +549,7 @@ fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &
         return run_pulsar_partition_streamed(lp, input_path, output_path, prov, plots, n_rows);
     }
     let df = read_parquet(input_path)?;
-    let input = read_pulsar_input(&df, input_path)?;
-    check_unique_ids(&input.obs_id, input_path)?;
-    let results = compute_pulsar(lp, &input);
-    // Residuals: optional weighted-mean removal over the accepted rows.
-    let sigma_s: Vec<f64> = results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect();
-    let raw: Vec<f64> = results.iter().filter_map(|r| r.as_ref().ok()).map(|g| g.residual_s).collect();
-    let offset = if lp.subtract_weighted_mean { residual_summary(&raw, &sigma_s, false).weighted_mean_s } else { 0.0 };
-    let mut f = batch_frames(lp, &df, &input, input_path, &results, offset)?;
+    let (input, mut f, offset) = pulsar_frames(lp, &df, input_path)?;
     let mut summary = RunSummary::new(df.height(), f.out.height(), f.rejects.height(), output_path, &f.reasons);
     observations_provenance(&mut prov, input_path, &input.day);
     finish_partition(lp, &mut summary, &mut prov, &f.sites, &f.rejected_sites, &f.residual_s, &f.sigma_s, offset, f.eop_predicted, f.clock_extrapolated);

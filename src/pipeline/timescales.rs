@@ -8,7 +8,7 @@
 //! pass-through columns. Rows that cannot be converted go to the rejects
 //! table beside the output with a `reason`.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use polars::prelude::*;
 use serde::Deserialize;
@@ -61,8 +61,21 @@ pub struct TimescalesPipeline {
 type RowResult = Result<(Vec<(i64, f64)>, f64, f64), String>;
 
 
-/// Runs a `timescales` pipeline.
-pub fn run_timescales(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
+/// A loaded `timescales` pipeline: the time-scale tables and what to convert.
+#[derive(Debug)]
+pub struct LoadedTimescales {
+    ts: TimeScales,
+    in_scale: TimeScale,
+    out_scales: Vec<TimeScale>,
+    leap_path: Option<PathBuf>,
+    pub input_path: PathBuf,
+    pub output_path: PathBuf,
+    pub chunk_rows: usize,
+    pub progress: Option<std::sync::Arc<std::sync::atomic::AtomicUsize>>,
+}
+
+/// Reads a `timescales` pipeline and loads its leap-second table once.
+pub fn load_timescales(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedTimescales, PipelineError> {
     let cfg: TimescalesPipeline = file.parse()?;
     let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
     let in_scale: TimeScale = cfg.input.scale.parse().map_err(|e: crate::time::TimeError| invalid(format!("[input] scale: {e}")))?;
@@ -84,47 +97,81 @@ pub fn run_timescales(file: &PipelineFile, opts: &super::RunOptions) -> Result<R
     if cfg.time.extend_leap_table {
         leaps = leaps.with_policy(ExpiryPolicy::ExtendLastOffset);
     }
-    let ts = TimeScales::new(leaps);
+    Ok(LoadedTimescales {
+        ts: TimeScales::new(leaps),
+        in_scale,
+        out_scales,
+        leap_path,
+        input_path: file.resolve(&cfg.input.path),
+        output_path: output.map(Path::to_path_buf).unwrap_or_else(|| file.resolve(&cfg.output.path)),
+        chunk_rows: super::DEFAULT_CHUNK_ROWS,
+        progress: None,
+    })
+}
 
-    let mut prov = super::Provenance::start(file);
-    let input_path = file.resolve(&cfg.input.path);
-    let output_path = opts.output.clone().unwrap_or_else(|| file.resolve(&cfg.output.path));
-    let df = read_parquet(&input_path)?;
-    let cols = Columns { df: &df, path: &input_path };
+/// One batch in memory: output and rejects frames exactly as a run writes
+/// them, the reject reasons, the day column and the TDB − TT range.
+struct TimescalesFrames {
+    out: DataFrame,
+    rejects: DataFrame,
+    reasons: Vec<String>,
+    days: Vec<Option<i64>>,
+    tdb_minus_tt_range_s: Option<(f64, f64)>,
+}
+
+fn timescales_frames(l: &LoadedTimescales, df: &DataFrame, source: &Path) -> Result<TimescalesFrames, PipelineError> {
+    let cols = Columns { df, path: source };
     let ids = cols.str("obs_id")?;
     let days = cols.i64("mjd_day")?;
     let fracs = cols.f64("mjd_frac")?;
-    check_unique_ids(&ids, &input_path)?;
-
-    let n = df.height();
-    let rows: Vec<usize> = (0..n).collect();
-    let results: Vec<RowResult> = super::par_map_chunks(&rows, opts.chunk_rows, opts.progress.as_deref(), |&i| convert_row(&ts, in_scale, &out_scales, days[i], fracs[i]));
-
+    check_unique_ids(&ids, source)?;
+    let rows: Vec<usize> = (0..df.height()).collect();
+    let results: Vec<RowResult> = super::par_map_chunks(&rows, l.chunk_rows, l.progress.as_deref(), |&i| convert_row(&l.ts, l.in_scale, &l.out_scales, days[i], fracs[i]));
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<&(Vec<(i64, f64)>, f64, f64)> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
     let mut computed: Vec<Column> = Vec::new();
-    for (k, s) in out_scales.iter().enumerate() {
+    for (k, s) in l.out_scales.iter().enumerate() {
         computed.push(Column::new(format!("{}_mjd_day", s.name()).into(), good.iter().map(|g| g.0[k].0).collect::<Vec<i64>>()));
         computed.push(Column::new(format!("{}_mjd_frac", s.name()).into(), good.iter().map(|g| g.0[k].1).collect::<Vec<f64>>()));
     }
     computed.push(Column::new("tt_minus_utc_s".into(), good.iter().map(|g| g.1).collect::<Vec<f64>>()));
     computed.push(Column::new("tdb_minus_tt_s".into(), good.iter().map(|g| g.2).collect::<Vec<f64>>()));
     let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
-    let (mut out, mut rejects) = assemble(&df, &input_path, &ok, &reasons, computed, &["mjd_day", "mjd_frac"])?;
+    let (out, rejects) = assemble(df, source, &ok, &reasons, computed, &["mjd_day", "mjd_frac"])?;
+    let tdb_minus_tt_range_s = (!good.is_empty()).then(|| good.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), g| (a.min(g.2), b.max(g.2))));
+    Ok(TimescalesFrames { out, rejects, reasons, days, tdb_minus_tt_range_s })
+}
 
-    let mut summary = RunSummary::new(n, out.height(), rejects.height(), &output_path, &reasons);
+/// Output and rejects of one in-memory batch (see [`crate::pipeline::batch`]).
+pub fn timescales_batch(l: &LoadedTimescales, df: &DataFrame, source: &Path) -> Result<(DataFrame, DataFrame), PipelineError> {
+    let f = timescales_frames(l, df, source)?;
+    Ok((f.out, f.rejects))
+}
+
+/// Runs a `timescales` pipeline.
+pub fn run_timescales(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
+    let mut l = load_timescales(file, opts.output.as_deref())?;
+    if let Some(i) = &opts.input {
+        l.input_path = i.clone();
+    }
+    l.chunk_rows = opts.chunk_rows;
+    l.progress = opts.progress.clone();
+    let mut prov = super::Provenance::start(file);
+    let (input_path, output_path) = (l.input_path.clone(), l.output_path.clone());
+    let df = read_parquet(&input_path)?;
+    let TimescalesFrames { mut out, mut rejects, reasons, days, tdb_minus_tt_range_s } = timescales_frames(&l, &df, &input_path)?;
+    let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), &output_path, &reasons);
     let (lo, hi) = days.iter().flatten().fold((i64::MAX, i64::MIN), |(a, b), d| (a.min(*d), b.max(*d)));
     prov.add_input("observations", &input_path, &if lo <= hi { format!("MJD {lo} … {hi}") } else { String::new() })?;
-    if let Some(p) = &leap_path {
-        prov.add_input("leap_seconds", p, &super::leap_coverage(ts.leap_seconds()))?;
+    if let Some(p) = &l.leap_path {
+        prov.add_input("leap_seconds", p, &super::leap_coverage(l.ts.leap_seconds()))?;
     }
-    prov.set("input.leap_seconds.table", ts.leap_seconds().source_name());
+    prov.set("input.leap_seconds.table", l.ts.leap_seconds().source_name());
     prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
     let metadata = prov.finish();
     write_parquet(&mut rejects, &summary.rejects, &metadata)?;
     write_parquet(&mut out, &output_path, &metadata)?;
-    let (min_tdb_tt, max_tdb_tt) = good.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), g| (a.min(g.2), b.max(g.2)));
-    if !good.is_empty() {
+    if let Some((min_tdb_tt, max_tdb_tt)) = tdb_minus_tt_range_s {
         summary.notes.push(format!("TDB − TT (geocentric) over the batch: {min_tdb_tt:+.9e} s … {max_tdb_tt:+.9e} s"));
     }
     Ok(summary)

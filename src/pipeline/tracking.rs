@@ -228,6 +228,9 @@ pub fn compute_tracking(lt: &mut LoadedTracking, input: &TrackingInput, check_va
 /// folder or glob, skipping partitions whose outputs are up to date).
 pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
     let mut lt = load_tracking(file, opts.output.as_deref())?;
+    if let Some(i) = &opts.input {
+        lt.input_path = i.clone();
+    }
     lt.ctx.chunk_rows = opts.chunk_rows;
     lt.ctx.progress = opts.progress.clone();
     let mut base = super::pulsar::shared_provenance(file, &lt.inputs, &lt.constants, &lt.ctx.shapiro, lt.ctx.ppn_gamma)?;
@@ -241,11 +244,21 @@ pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary
     super::for_each_partition(&input, &output, &base, |inp, out, prov| run_tracking_partition(&mut lt, inp, out, prov, opts.plots))
 }
 
-/// One partition of a tracking run.
-fn run_tracking_partition(lt: &mut LoadedTracking, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
-    let df = read_parquet(input_path)?;
-    let input = read_tracking_input(&df, input_path)?;
-    check_unique_ids(&input.obs_id, input_path)?;
+/// One tracking batch in memory: output and rejects frames exactly as a run
+/// writes them, plus what the summary and plots need. `source` names the
+/// batch in errors.
+struct TrackingFrames {
+    input: TrackingInput,
+    results: Vec<Result<TrackingResult, String>>,
+    residual: Vec<f64>,
+    reasons: Vec<String>,
+    out: DataFrame,
+    rejects: DataFrame,
+}
+
+fn tracking_frames(lt: &mut LoadedTracking, df: &DataFrame, source: &Path) -> Result<TrackingFrames, PipelineError> {
+    let input = read_tracking_input(df, source)?;
+    check_unique_ids(&input.obs_id, source)?;
     let results = compute_tracking(lt, &input, true);
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<(usize, &TrackingResult)> = results.iter().enumerate().filter_map(|(i, r)| r.as_ref().ok().map(|g| (i, g))).collect();
@@ -273,7 +286,21 @@ fn run_tracking_partition(lt: &mut LoadedTracking, input_path: &Path, output_pat
         fcol("troposphere_s", good.iter().map(|(_, g)| g.troposphere_s).collect()),
     ];
     let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
-    let (mut out, mut rejects) = assemble(&df, input_path, &ok, &reasons, computed, &[])?;
+    let (out, rejects) = assemble(df, source, &ok, &reasons, computed, &[])?;
+    Ok(TrackingFrames { input, results, residual, reasons, out, rejects })
+}
+
+/// Output and rejects of one in-memory batch (see [`crate::pipeline::batch`]).
+pub fn tracking_batch(lt: &mut LoadedTracking, df: &DataFrame, source: &Path) -> Result<(DataFrame, DataFrame), PipelineError> {
+    let f = tracking_frames(lt, df, source)?;
+    Ok((f.out, f.rejects))
+}
+
+/// One partition of a tracking run.
+fn run_tracking_partition(lt: &mut LoadedTracking, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
+    let df = read_parquet(input_path)?;
+    let TrackingFrames { input, results, residual, reasons, mut out, mut rejects } = tracking_frames(lt, &df, input_path)?;
+    let good: Vec<usize> = (0..results.len()).filter(|i| results[*i].is_ok()).collect();
     let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), output_path, &reasons);
 
     // Per kind and station: rows, rejected, weighted RMS, χ²/N.
@@ -308,16 +335,16 @@ fn run_tracking_partition(lt: &mut LoadedTracking, input_path: &Path, output_pat
     write_parquet(&mut out, output_path, &metadata)?;
     if plots {
         // One plot per observable kind, per station, in natural units.
-        let mut kinds: Vec<String> = good.iter().map(|(i, _)| input.kind[*i].clone().unwrap_or_default()).collect();
+        let mut kinds: Vec<String> = good.iter().map(|i| input.kind[*i].clone().unwrap_or_default()).collect();
         kinds.sort();
         kinds.dedup();
         for kind in kinds {
-            let sel: Vec<usize> = (0..good.len()).filter(|j| input.kind[good[*j].0].as_deref() == Some(kind.as_str())).collect();
+            let sel: Vec<usize> = (0..good.len()).filter(|j| input.kind[good[*j]].as_deref() == Some(kind.as_str())).collect();
             let (scale, unit) = if kind.starts_with("doppler") { (1e3, "mHz") } else { (1e9, "ns") };
-            let labels: Vec<String> = sel.iter().map(|j| input.rx_station[good[*j].0].clone().unwrap_or_default()).collect();
-            let t: Vec<f64> = sel.iter().map(|j| input.day[good[*j].0].unwrap_or(0) as f64 + input.frac[good[*j].0].unwrap_or(0.0)).collect();
+            let labels: Vec<String> = sel.iter().map(|j| input.rx_station[good[*j]].clone().unwrap_or_default()).collect();
+            let t: Vec<f64> = sel.iter().map(|j| input.day[good[*j]].unwrap_or(0) as f64 + input.frac[good[*j]].unwrap_or(0.0)).collect();
             let y: Vec<f64> = sel.iter().map(|j| residual[*j] * scale).collect();
-            let sg: Vec<f64> = sel.iter().map(|j| input.sigma[good[*j].0].unwrap_or(0.0) * scale).collect();
+            let sg: Vec<f64> = sel.iter().map(|j| input.sigma[good[*j]].unwrap_or(0.0) * scale).collect();
             let groups = crate::plots::group(&labels, &t, &y, &sg);
             let written = crate::plots::residual_plots(output_path, &format!("residuals_{kind}"), &format!("{kind} residuals"), "reception time (MJD, UTC)", &format!("residual ({unit})"), &groups)
                 .map_err(|message| PipelineError::Invalid { path: output_path.into(), message })?;
