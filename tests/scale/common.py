@@ -37,19 +37,23 @@ def canonical(tables, key="obs_id", sort=True):
     equal columns, types, nulls and values, bit for bit."""
     t = pa.concat_tables([pa.table(x) if not isinstance(x, pa.Table) else x for x in tables])
     t = t.replace_schema_metadata(None)
+    schema = t.schema
+    # pyarrow cannot sort or take string views yet: plain strings (same text;
+    # the types are compared through `schema`).
+    t = t.cast(pa.schema([pa.field(f.name, pa.large_string() if pa.types.is_string_view(f.type) else f.type) for f in schema]))
     if sort and t.num_rows:
         t = t.sort_by(key)
     t = t.combine_chunks()
     cols, names = [], []
     for name, c in zip(t.column_names, t.columns):
-        if pa.types.is_string_view(c.type) or pa.types.is_string(c.type):
-            c = c.cast(pa.large_string())  # same text; the type is kept in the schema bytes
+        if pa.types.is_string(c.type):
+            c = c.cast(pa.large_string())
         zero = "" if pa.types.is_large_string(c.type) else False if pa.types.is_boolean(c.type) else 0
         cols += [pc.is_null(c), pc.fill_null(c, pa.scalar(zero).cast(c.type))]
         names += [f"{name}.null", name]
     flat = pa.table(cols, names=names)
     sink = pa.BufferOutputStream()
-    sink.write(t.schema.serialize())
+    sink.write(schema.serialize())
     with pa.ipc.new_stream(sink, flat.schema) as w:
         w.write_table(flat)
     return sink.getvalue().to_pybytes()
@@ -77,6 +81,8 @@ def split(table, parts, folder, shuffle_seed=None):
         import numpy as np
 
         idx = np.random.default_rng(shuffle_seed).permutation(table.num_rows)
+        # pyarrow cannot `take` string views yet: plain strings (same text).
+        table = table.cast(pa.schema([pa.field(f.name, pa.large_string() if pa.types.is_string_view(f.type) else f.type) for f in table.schema]))
         table = table.take(pa.array(idx))
     n = table.num_rows
     paths = []
