@@ -33,7 +33,7 @@ cleanup() {
   set +e
   [ -f "$work/slurmd.pid" ] && kill "$(cat "$work/slurmd.pid")" 2>/dev/null
   [ -f "$work/slurmctld.pid" ] && kill "$(cat "$work/slurmctld.pid")" 2>/dev/null
-  [ "$started_munge" = 1 ] && [ -f "$work/munged.pid" ] && kill "$(cat "$work/munged.pid")" 2>/dev/null
+  [ "$started_munge" = 1 ] && [ -f /run/munge/lapse-test-munged.pid ] && kill "$(cat /run/munge/lapse-test-munged.pid)" 2>/dev/null
   sleep 1
   rm -rf "$work"
 }
@@ -45,7 +45,7 @@ mkdir -p /run/munge /var/log/munge /var/lib/munge /etc/munge
 chown -R munge:munge /etc/munge /run/munge /var/log/munge /var/lib/munge 2>/dev/null || true
 chmod 400 /etc/munge/munge.key
 if ! munge -n >/dev/null 2>&1; then
-  runuser -u munge -- /usr/sbin/munged --pid-file="$work/munged.pid" 2>/dev/null || /usr/sbin/munged --force --pid-file="$work/munged.pid"
+  runuser -u munge -- /usr/sbin/munged --pid-file=/run/munge/lapse-test-munged.pid 2>/dev/null || /usr/sbin/munged --force --pid-file=/run/munge/lapse-test-munged.pid
   started_munge=1
   for _ in $(seq 50); do munge -n >/dev/null 2>&1 && break; sleep 0.1; done
 fi
