@@ -20,7 +20,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "tests/scale"))
-from common import ROOT, canonical, cli, digest, pipeline_input, read_outputs, split  # noqa: E402
+from common import ROOT, canonical, digest, partitioned_cli_run, read_outputs  # noqa: E402
 
 
 def main():
@@ -29,8 +29,7 @@ def main():
     pipeline = str(ROOT / "pipelines/pulsar_demo.toml")
     with tempfile.TemporaryDirectory() as d:
         d = Path(d)
-        files = split(pq.read_table(pipeline_input(pipeline)), 4, d / "in", 1)
-        cli("run", pipeline, "--input", d / "in", "--output", d / "cli", "--no-plots", "--quiet")
+        files = partitioned_cli_run(pipeline, 4, 1, d)
 
         t0 = time.perf_counter()
         ray.init(num_cpus=2, include_dashboard=False, log_to_driver=False)

@@ -22,7 +22,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "tests/scale"))
-from common import ROOT, canonical, cli, digest, pipeline_input, read_outputs, split  # noqa: E402
+from common import ROOT, canonical, digest, partitioned_cli_run, read_outputs  # noqa: E402
 
 
 def plain_strings(schema):
@@ -41,8 +41,7 @@ def main():
     pipeline = str(ROOT / "pipelines/pulsar_demo.toml")
     with tempfile.TemporaryDirectory() as d:
         d = Path(d)
-        files = split(pq.read_table(pipeline_input(pipeline)), 4, d / "in", 1)
-        cli("run", pipeline, "--input", d / "in", "--output", d / "cli", "--no-plots", "--quiet")
+        files = partitioned_cli_run(pipeline, 4, 1, d)
 
         t0 = time.perf_counter()
         spark = SparkSession.builder.master("local[2]").appName("lapse").config("spark.ui.enabled", "false").getOrCreate()

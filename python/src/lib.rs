@@ -113,11 +113,12 @@ struct ArrowBatch {
     num_columns: usize,
 }
 
-unsafe extern "C" fn drop_schema_capsule(cap: *mut pyo3::ffi::PyObject) {
-    // SAFETY: the capsule was made below from Box<ArrowSchema>; dropping it
-    // calls the release callback unless a consumer moved the schema out.
+/// Capsule destructor: drops the boxed C data interface struct, which calls
+/// its release callback unless a consumer moved the data out.
+unsafe extern "C" fn drop_capsule<T>(cap: *mut pyo3::ffi::PyObject) {
+    // SAFETY: `cap` was made by `capsule::<T>` from a Box<T> under its name.
     unsafe {
-        let p = pyo3::ffi::PyCapsule_GetPointer(cap, SCHEMA_CAPSULE.as_ptr()) as *mut ffi::ArrowSchema;
+        let p = pyo3::ffi::PyCapsule_GetPointer(cap, pyo3::ffi::PyCapsule_GetName(cap)) as *mut T;
         if p.is_null() {
             pyo3::ffi::PyErr_Clear();
         } else {
@@ -126,23 +127,11 @@ unsafe extern "C" fn drop_schema_capsule(cap: *mut pyo3::ffi::PyObject) {
     }
 }
 
-unsafe extern "C" fn drop_array_capsule(cap: *mut pyo3::ffi::PyObject) {
-    // SAFETY: as above, for Box<ArrowArray>.
-    unsafe {
-        let p = pyo3::ffi::PyCapsule_GetPointer(cap, ARRAY_CAPSULE.as_ptr()) as *mut ffi::ArrowArray;
-        if p.is_null() {
-            pyo3::ffi::PyErr_Clear();
-        } else {
-            drop(Box::from_raw(p));
-        }
-    }
-}
-
-fn capsule<T>(py: Python<'_>, value: T, name: &'static CStr, destructor: unsafe extern "C" fn(*mut pyo3::ffi::PyObject)) -> PyResult<Py<PyAny>> {
+fn capsule<T>(py: Python<'_>, value: T, name: &'static CStr) -> PyResult<Py<PyAny>> {
     let ptr = Box::into_raw(Box::new(value)) as *mut c_void;
     // SAFETY: ptr is a valid heap pointer owned by the capsule from here on
-    // (freed by `destructor`); name is 'static.
-    let obj = unsafe { pyo3::ffi::PyCapsule_New(ptr, name.as_ptr(), Some(destructor)) };
+    // (freed by `drop_capsule::<T>`); name is 'static.
+    let obj = unsafe { pyo3::ffi::PyCapsule_New(ptr, name.as_ptr(), Some(drop_capsule::<T>)) };
     if obj.is_null() {
         // SAFETY: the capsule was not created; reclaim the box.
         drop(unsafe { Box::from_raw(ptr as *mut T) });
@@ -159,7 +148,7 @@ impl ArrowBatch {
     fn __arrow_c_array__(&self, py: Python<'_>, requested_schema: Option<Py<PyAny>>) -> PyResult<(Py<PyAny>, Py<PyAny>)> {
         let _ = requested_schema; // the batch is given in its own schema
         let (schema, array) = self.c.lock().map_err(lapse_err)?.take().ok_or_else(|| PyValueError::new_err("this lapse batch was already exported; convert it once, e.g. pyarrow.record_batch(batch)"))?;
-        Ok((capsule(py, schema, SCHEMA_CAPSULE, drop_schema_capsule)?, capsule(py, array, ARRAY_CAPSULE, drop_array_capsule)?))
+        Ok((capsule(py, schema, SCHEMA_CAPSULE)?, capsule(py, array, ARRAY_CAPSULE)?))
     }
 
     fn __repr__(&self) -> String {

@@ -92,3 +92,13 @@ def split(table, parts, folder, shuffle_seed=None):
         pq.write_table(table.slice(a, b - a), p)
         paths.append(p)
     return paths
+
+
+def partitioned_cli_run(pipeline, parts, seed, folder):
+    """Splits a pipeline's demo input into `parts` files under folder/in and
+    runs the CLI on them into folder/cli (the single-process reference);
+    returns the input files."""
+    folder = Path(folder)
+    files = split(pq.read_table(pipeline_input(pipeline)), parts, folder / "in", seed)
+    cli("run", pipeline, "--input", folder / "in", "--output", folder / "cli", "--no-plots", "--quiet")
+    return files
