@@ -47,7 +47,7 @@ fn bench(c: &mut Criterion) {
             black_box(CipXys::direct(2_400_000.5, 60_000.0 + d % 29.0))
         })
     });
-    let g = CipGrid::new(60_000.0, 60_030.0, 0.25);
+    let g = CipGrid::new(60_000.0, 60_030.0, lapse::earth::CIP_GRID_STEP_DAY);
     c.bench_function("pole: X, Y, s from grid", |b| {
         let mut d = 0.0;
         b.iter(|| {

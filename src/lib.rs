@@ -12,6 +12,7 @@ pub mod delays;
 pub mod diff;
 pub mod earth;
 pub mod ephemeris;
+pub mod interp;
 pub mod io;
 pub mod light_time;
 pub mod pipeline;
