@@ -192,9 +192,14 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             Ok(ExitCode::from(report.exit_code()))
         }
         Command::Run { pipeline, input, output, threads, chunk_rows, no_plots } => {
+            // Every parallel step (loading, grids, rows) uses this many threads.
+            if let Some(n) = threads {
+                rayon::ThreadPoolBuilder::new().num_threads(n).build_global().context("cannot start the worker threads")?;
+            }
             // The same checks as `lapse check`, first: stop when unusable,
             // report problems (their rows will be rejected with reasons).
-            let report = lapse::pipeline::preflight::preflight_input(&pipeline, input.as_deref());
+            // The shared inputs it loads are kept for the run (read once).
+            let (report, prepared) = lapse::pipeline::preflight::preflight_prepared(&pipeline, input.as_deref());
             match report.exit_code() {
                 2 => {
                     eprint!("{}", report.render());
@@ -208,17 +213,12 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
                 }
                 _ => {}
             }
+            let Some(prepared) = prepared else { bail!("preflight: the pipeline cannot be read") };
             let progress = std::sync::Arc::new(std::sync::atomic::AtomicUsize::new(0));
             let opts = lapse::pipeline::RunOptions { input: input.clone(), output, chunk_rows, plots: !no_plots, progress: Some(progress.clone()) };
             let done = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
             let watcher = (!cli.quiet).then(|| spawn_progress(&pipeline, input.as_deref(), progress, done.clone()));
-            let result = match threads {
-                Some(n) => {
-                    let pool = rayon::ThreadPoolBuilder::new().num_threads(n).build().context("cannot start the worker threads")?;
-                    pool.install(|| run(pipeline, &opts, cli.quiet))
-                }
-                None => run(pipeline, &opts, cli.quiet),
-            };
+            let result = run(&pipeline, prepared, &opts, cli.quiet);
             done.store(true, std::sync::atomic::Ordering::Relaxed);
             if let Some(w) = watcher {
                 let _ = w.join();
@@ -347,8 +347,8 @@ fn spawn_progress(pipeline: &std::path::Path, input: Option<&std::path::Path>, c
     })
 }
 
-fn run(pipeline: PathBuf, opts: &lapse::pipeline::RunOptions, quiet: bool) -> Result<ExitCode> {
-    let s = lapse::pipeline::run(&pipeline, opts)?;
+fn run(pipeline: &std::path::Path, prepared: lapse::pipeline::preflight::Prepared, opts: &lapse::pipeline::RunOptions, quiet: bool) -> Result<ExitCode> {
+    let s = lapse::pipeline::run_prepared(prepared, opts)?;
     if !quiet {
         let mut out = std::io::stdout().lock();
         writeln!(out, "pipeline   {}", pipeline.display())?;

@@ -157,6 +157,25 @@ pub fn run(path: &Path, opts: &RunOptions) -> Result<RunSummary, PipelineError> 
     }
 }
 
+/// Runs a pipeline the preflight already read and loaded
+/// ([`preflight::preflight_prepared`]): the shared inputs are not read again.
+pub fn run_prepared(prepared: preflight::Prepared, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
+    let preflight::Prepared { file, loaded } = prepared;
+    if opts.chunk_rows == 0 {
+        return Err(PipelineError::Invalid { path: file.path.clone(), message: "chunk size must be at least 1 row".into() });
+    }
+    match loaded {
+        Some(preflight::PreparedInputs::Pulsar(lp)) => pulsar::run_pulsar_loaded(&file, *lp, opts),
+        Some(preflight::PreparedInputs::Tracking(lt)) => tracking::run_tracking_loaded(&file, *lt, opts),
+        None => match file.kind.as_str() {
+            "timescales" => run_timescales(&file, opts),
+            "pulsar" => run_pulsar(&file, opts),
+            "tracking" => tracking::run_tracking(&file, opts),
+            other => Err(PipelineError::UnknownKind { path: file.path.clone(), kind: other.into(), known: KINDS.join(", ") }),
+        },
+    }
+}
+
 /// Path of the rejects table beside an output file: `x.parquet` → `x.rejects.parquet`.
 pub fn rejects_path(output: &Path) -> PathBuf {
     let stem = output.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "output".into());

@@ -248,31 +248,55 @@ pub fn preflight(path: &Path) -> Preflight {
 /// Preflight of a pipeline file run on `input` (file, folder or glob)
 /// instead of its `[input] path` when given.
 pub fn preflight_input(path: &Path, input: Option<&Path>) -> Preflight {
+    preflight_prepared(path, input).0
+}
+
+/// A pipeline read, and its shared inputs loaded, by the preflight: `lapse
+/// run` hands it to [`super::run_prepared`] so that kernels, EOP and clocks
+/// are read once.
+pub struct Prepared {
+    pub file: PipelineFile,
+    pub loaded: Option<PreparedInputs>,
+}
+
+/// The shared inputs a preflight loaded (pulsar and tracking kinds).
+pub enum PreparedInputs {
+    Pulsar(Box<super::pulsar::LoadedPulsar>),
+    Tracking(Box<super::tracking::LoadedTracking>),
+}
+
+/// [`preflight_input`], also returning what it loaded (`None` when the
+/// pipeline file itself is unusable).
+pub fn preflight_prepared(path: &Path, input: Option<&Path>) -> (Preflight, Option<Prepared>) {
     let mut p = Preflight::default();
     let file = match PipelineFile::read(path) {
         Ok(f) => f,
         Err(e) => {
             p.add(Level::Unusable, e.to_string());
-            return p;
+            return (p, None);
         }
     };
     p.add(Level::Ok, format!("pipeline {} (kind {})", path.display(), file.kind));
-    match file.kind.as_str() {
-        "pulsar" => preflight_pulsar(&file, input, &mut p),
-        "tracking" => preflight_tracking(&file, input, &mut p),
+    let loaded = match file.kind.as_str() {
+        "pulsar" => preflight_pulsar(&file, input, &mut p).map(|l| PreparedInputs::Pulsar(Box::new(l))),
+        "tracking" => preflight_tracking(&file, input, &mut p).map(|l| PreparedInputs::Tracking(Box::new(l))),
         _ => {
             if let Err(e) = file.parse::<super::TimescalesPipeline>() {
                 p.add(Level::Unusable, e.to_string());
             }
+            None
         }
-    }
-    p
+    };
+    (p, Some(Prepared { file, loaded }))
 }
 
-fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) {
+fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::pulsar::LoadedPulsar> {
     let lp = match super::pulsar::load_pulsar(file, None) {
         Ok(lp) => lp,
-        Err(e) => return p.add(Level::Unusable, e.to_string()),
+        Err(e) => {
+            p.add(Level::Unusable, e.to_string());
+            return None;
+        }
     };
     p.add(Level::Ok, format!("kernels, EOP, stations{} loaded", if lp.ctx.clocks.is_empty() { "" } else { ", clock tables" }));
     let mut bodies = vec![399];
@@ -306,12 +330,16 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
             }
         },
     );
+    Some(lp)
 }
 
-fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) {
+fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::tracking::LoadedTracking> {
     let lt = match super::tracking::load_tracking(file, None) {
         Ok(lt) => lt,
-        Err(e) => return p.add(Level::Unusable, e.to_string()),
+        Err(e) => {
+            p.add(Level::Unusable, e.to_string());
+            return None;
+        }
     };
     p.add(Level::Ok, "kernels, EOP, stations loaded");
     let mut bodies = vec![399, lt.ctx.target];
@@ -334,4 +362,5 @@ fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflig
             check_earth(p, &lt.ctx.earth, s, &facts.days);
         },
     );
+    Some(lt)
 }

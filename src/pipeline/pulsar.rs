@@ -269,7 +269,11 @@ pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg
     if kernels.is_empty() {
         return Err(invalid("[ephemeris] kernels is empty".into()));
     }
-    let ephemeris = Ephemeris::load(&kernels).map_err(|e| invalid(format!("[ephemeris] {e}")))?;
+    // The kernels and the EOP file are independent: read them concurrently.
+    let eop_path = file.resolve(&earth_cfg.eop);
+    let (ephemeris, eop) = rayon::join(|| Ephemeris::load(&kernels), || EopTable::from_file(&eop_path));
+    let ephemeris = ephemeris.map_err(|e| invalid(format!("[ephemeris] {e}")))?;
+    let eop = eop.map_err(|e| invalid(format!("[earth] {e}")))?;
     for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
         inputs.push(("kernel".into(), k.clone(), super::kernel_coverage(loaded)));
     }
@@ -281,8 +285,6 @@ pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg
         }
         None => Constants::builtin(),
     };
-    let eop_path = file.resolve(&earth_cfg.eop);
-    let eop = EopTable::from_file(&eop_path).map_err(|e| invalid(format!("[earth] {e}")))?;
     inputs.push(("eop".into(), eop_path, super::eop_coverage(&eop)));
     let mut earth = EarthModel::new(time, eop);
     earth.pole_offsets = earth_cfg.pole_offsets;
@@ -385,7 +387,14 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
 /// Runs a pulsar pipeline (one input file, or every partition of a folder
 /// or glob, skipping partitions whose outputs are up to date).
 pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
-    let mut lp = load_pulsar(file, opts.output.as_deref())?;
+    run_pulsar_loaded(file, load_pulsar(file, None)?, opts)
+}
+
+/// [`run_pulsar`] with the shared inputs already loaded (by the preflight).
+pub fn run_pulsar_loaded(file: &PipelineFile, mut lp: LoadedPulsar, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
+    if let Some(o) = &opts.output {
+        lp.output_path = o.clone();
+    }
     if let Some(i) = &opts.input {
         lp.input_path = i.clone();
     }

@@ -227,7 +227,14 @@ pub fn compute_tracking(lt: &mut LoadedTracking, input: &TrackingInput, check_va
 /// Runs a tracking pipeline (one input file, or every partition of a
 /// folder or glob, skipping partitions whose outputs are up to date).
 pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
-    let mut lt = load_tracking(file, opts.output.as_deref())?;
+    run_tracking_loaded(file, load_tracking(file, None)?, opts)
+}
+
+/// [`run_tracking`] with the shared inputs already loaded (by the preflight).
+pub fn run_tracking_loaded(file: &PipelineFile, mut lt: LoadedTracking, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
+    if let Some(o) = &opts.output {
+        lt.output_path = o.clone();
+    }
     if let Some(i) = &opts.input {
         lt.input_path = i.clone();
     }
