@@ -199,7 +199,9 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             // The same checks as `lapse check`, first: stop when unusable,
             // report problems (their rows will be rejected with reasons).
             // The shared inputs it loads are kept for the run (read once).
+            let t0 = std::time::Instant::now();
             let (report, prepared) = lapse::pipeline::preflight::preflight_prepared(&pipeline, input.as_deref());
+            tracing::debug!(preflight_s = t0.elapsed().as_secs_f64(), "preflight done");
             match report.exit_code() {
                 2 => {
                     eprint!("{}", report.render());

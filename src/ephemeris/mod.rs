@@ -172,6 +172,28 @@ impl Ephemeris {
         Err(EphemerisError::BrokenChain { body: body_name(target), id: target })
     }
 
+    /// Barycentric position (km) of a body: bit-identical to
+    /// `state_ssb(..).position_km`, at about half the cost (no velocities).
+    ///
+    /// # Errors
+    /// As [`Self::state_ssb`].
+    pub fn position_ssb_km(&self, target: i32, t: &TdbSeconds) -> Result<[f64; 3], EphemerisError> {
+        let mut total = [0.0f64; 3];
+        let mut body = target;
+        for _ in 0..16 {
+            if body == 0 {
+                return Ok(total);
+            }
+            let (seg, path) = self.segment_for(body, t)?;
+            let p = seg.position(t).ok_or_else(|| EphemerisError::UnsupportedType { body: body_name(body), id: body, spk_type: seg.spk_type, path: path.to_path_buf() })?;
+            for k in 0..3 {
+                total[k] += p[k];
+            }
+            body = seg.center;
+        }
+        Err(EphemerisError::BrokenChain { body: body_name(target), id: target })
+    }
+
     /// Barycentric state of a body given by name or code.
     pub fn state_ssb_named(&self, name: &str, t: &TdbSeconds) -> Result<StateKm, EphemerisError> {
         let id = body_id(name, &[]).ok_or_else(|| EphemerisError::UnknownBody { name: name.into() })?;

@@ -218,6 +218,41 @@ impl Segment {
         }
         Some(s)
     }
+
+    /// Position only (km), for callers that need no velocity (Shapiro
+    /// bodies): the same sums as [`Self::evaluate`] in the same order, so
+    /// the result is bit-identical to its `position_km`, without the
+    /// derivative recurrence (about half the work).
+    pub fn position(&self, t: &TdbSeconds) -> Option<[f64; 3]> {
+        let c = match &self.data {
+            SegmentData::Chebyshev(c) => c,
+            SegmentData::Discrete(d) => return Some(d.evaluate(t).position_km),
+            SegmentData::Unsupported => return None,
+        };
+        let since_init = t.minus_f64_s(c.init_s);
+        let idx = ((since_init / c.interval_s).floor().max(0.0) as usize).min(c.n_records - 1);
+        let rec = &c.records[idx * c.record_len..(idx + 1) * c.record_len];
+        let tau = t.minus_f64_s(rec[0]) / rec[1];
+        let n = c.n_coeffs;
+        let mut tk = [0.0f64; MAX_COEFFS];
+        tk[0] = 1.0;
+        if n > 1 {
+            tk[1] = tau;
+        }
+        for k in 2..n {
+            tk[k] = 2.0 * tau * tk[k - 1] - tk[k - 2];
+        }
+        let mut out = [0.0; 3];
+        for (axis, o) in out.iter_mut().enumerate() {
+            let coef = &rec[2 + axis * n..2 + (axis + 1) * n];
+            let mut p = 0.0;
+            for k in (0..n).rev() {
+                p += coef[k] * tk[k];
+            }
+            *o = p;
+        }
+        Some(out)
+    }
 }
 
 /// A loaded SPK kernel.

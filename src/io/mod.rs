@@ -73,8 +73,17 @@ pub fn read_parquet_metadata(path: &Path) -> Result<Vec<(String, String)>, IoErr
     }
 }
 
+/// Compression of every Parquet file lapse writes: zstd level 1. Measured on
+/// a 10⁶-row pulsar output (26 columns): 130.1 MB in 0.47 s, against
+/// 129.4 MB in 0.66 s at zstd's default level and 171 MB in 0.34 s
+/// uncompressed (mostly f64 mantissas, which hardly compress).
+pub fn output_compression() -> ParquetCompression {
+    ParquetCompression::Zstd(polars_parquet::write::ZstdLevel::try_new(1).ok())
+}
+
 /// Writes a table with key-value metadata to `path`, through a temporary
-/// file renamed into place only when complete.
+/// file renamed into place only when complete (columns compressed in
+/// parallel).
 pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, String)]) -> Result<(), IoError> {
     let werr = |message: String| IoError::Write { path: path.into(), message };
     if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
@@ -87,8 +96,8 @@ pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, Strin
         .map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) })
         .collect();
     ParquetWriter::new(f)
-        .with_compression(ParquetCompression::Zstd(None))
-        .set_parallel(false)
+        .with_compression(output_compression())
+        .set_parallel(true)
         .with_key_value_metadata(Some(KeyValueMetadata::Static(kv)))
         .finish(df)
         .map_err(|e| werr(e.to_string()))?;

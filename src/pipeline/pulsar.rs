@@ -440,8 +440,9 @@ fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_pa
     let ts = &lp.ctx.earth.time;
     let parts = |e: &crate::time::Epoch| ts.mjd_parts(e).unwrap_or((e.mjd_day(), f64::NAN));
     let col_f = |name: &str, v: Vec<f64>| Column::new(name.into(), v);
-    let tdb: Vec<(i64, f64)> = good.iter().map(|g| parts(&g.tdb)).collect();
-    let bat: Vec<(i64, f64)> = good.iter().map(|g| parts(&g.bat)).collect();
+    // Exact day fractions (one u128 division each): in parallel, order kept.
+    use rayon::prelude::*;
+    let (tdb, bat): (Vec<(i64, f64)>, Vec<(i64, f64)>) = good.par_iter().map(|g| (parts(&g.tdb), parts(&g.bat))).unzip();
     let mut computed = vec![
         Column::new("tdb_mjd_day".into(), tdb.iter().map(|x| x.0).collect::<Vec<i64>>()),
         col_f("tdb_mjd_frac", tdb.iter().map(|x| x.1).collect()),
@@ -533,14 +534,18 @@ fn partition_plots(output_path: &Path, sites: &[String], bat_mjd: &[f64], residu
 /// asks for it), the input columns and the offset removed. `source` names
 /// the batch in errors.
 fn pulsar_frames(lp: &mut LoadedPulsar, df: &DataFrame, source: &Path) -> Result<(PulsarInput, BatchFrames, f64), PipelineError> {
+    let t0 = std::time::Instant::now();
     let input = read_pulsar_input(df, source)?;
     check_unique_ids(&input.obs_id, source)?;
+    let t1 = std::time::Instant::now();
     let results = compute_pulsar(lp, &input);
+    let t2 = std::time::Instant::now();
     // Residuals: optional weighted-mean removal over the accepted rows.
     let sigma_s: Vec<f64> = results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect();
     let raw: Vec<f64> = results.iter().filter_map(|r| r.as_ref().ok()).map(|g| g.residual_s).collect();
     let offset = if lp.subtract_weighted_mean { residual_summary(&raw, &sigma_s, false).weighted_mean_s } else { 0.0 };
     let f = batch_frames(lp, df, &input, source, &results, offset)?;
+    tracing::debug!(rows = df.height(), columns_s = (t1 - t0).as_secs_f64(), compute_s = (t2 - t1).as_secs_f64(), frames_s = t2.elapsed().as_secs_f64(), "pulsar batch");
     Ok((input, f, offset))
 }
 
@@ -557,15 +562,19 @@ fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &
     if n_rows > env_usize("LAPSE_STREAM_ROWS", STREAM_ABOVE_ROWS) {
         return run_pulsar_partition_streamed(lp, input_path, output_path, prov, plots, n_rows);
     }
+    let t0 = std::time::Instant::now();
     let df = read_parquet(input_path)?;
+    tracing::debug!(read_s = t0.elapsed().as_secs_f64(), "read {}", input_path.display());
     let (input, mut f, offset) = pulsar_frames(lp, &df, input_path)?;
     let mut summary = RunSummary::new(df.height(), f.out.height(), f.rejects.height(), output_path, &f.reasons);
     observations_provenance(&mut prov, input_path, &input.day);
     finish_partition(lp, &mut summary, &mut prov, &f.sites, &f.rejected_sites, &f.residual_s, &f.sigma_s, offset, f.eop_predicted, f.clock_extrapolated);
     let metadata = prov.finish();
     // Rejects first, output last: an existing output marks a complete partition.
+    let t0 = std::time::Instant::now();
     write_parquet(&mut f.rejects, &rejects_path(output_path), &metadata)?;
     write_parquet(&mut f.out, output_path, &metadata)?;
+    tracing::debug!(write_s = t0.elapsed().as_secs_f64(), "wrote {}", output_path.display());
     if plots {
         summary.plots = partition_plots(output_path, &f.sites, &f.bat_mjd, &f.residual_s, &f.sigma_s)?;
     }
@@ -618,7 +627,7 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
         if w_out.is_none() {
             let mk = |p: &Path, schema: &Schema| -> Result<polars::io::parquet::write::BatchedWriter<std::fs::File>, PipelineError> {
                 let file = std::fs::File::create(p).map_err(|e| crate::io::IoError::Write { path: p.into(), message: e.to_string() })?;
-                ParquetWriter::new(file).with_compression(ParquetCompression::Zstd(None)).set_parallel(false).batched(schema).map_err(|e| werr(p, e))
+                ParquetWriter::new(file).with_compression(crate::io::output_compression()).set_parallel(false).batched(schema).map_err(|e| werr(p, e))
             };
             w_out = Some(mk(&tmp_out, &f.out.schema())?);
             w_rej = Some(mk(&tmp_rej, &f.rejects.schema())?);
@@ -683,7 +692,7 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
             let mut df = read_slice(tmp, at, slice, None)?;
             if w.is_none() {
                 let file = std::fs::File::create(&part).map_err(|e| crate::io::IoError::Write { path: part.clone(), message: e.to_string() })?;
-                w = Some(ParquetWriter::new(file).with_compression(ParquetCompression::Zstd(None)).set_parallel(false).with_key_value_metadata(Some(KeyValueMetadata::Static(kv.clone()))).batched(&df.schema()).map_err(|e| werr(&part, e))?);
+                w = Some(ParquetWriter::new(file).with_compression(crate::io::output_compression()).set_parallel(false).with_key_value_metadata(Some(KeyValueMetadata::Static(kv.clone()))).batched(&df.schema()).map_err(|e| werr(&part, e))?);
             }
             if fix && offset != 0.0 {
                 let r: Vec<f64> = crate::io::Columns { df: &df, path: tmp }.f64("residual_s")?.iter().map(|v| v.unwrap_or(f64::NAN) - offset).collect();
