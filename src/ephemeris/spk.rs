@@ -255,6 +255,9 @@ impl Segment {
     }
 }
 
+/// Largest interpolation window of a type 9/13 segment lapse reads (states).
+pub const MAX_WINDOW: usize = 64;
+
 /// A loaded SPK kernel.
 #[derive(Clone, Debug)]
 pub struct SpkKernel {
@@ -386,7 +389,7 @@ fn parse_discrete(d: &[f64], hermite: bool) -> Result<DiscreteStates, String> {
     if n.checked_mul(7).map(|x| x + dir + 2) != Some(d.len()) {
         return Err(format!("{n} states do not fill the segment's {} doubles", d.len()));
     }
-    if window > n || window > 64 {
+    if window > n || window > MAX_WINDOW {
         return Err(format!("window of {window} states with {n} states"));
     }
     let states: Vec<[f64; 6]> = (0..n).map(|i| std::array::from_fn(|k| d[6 * i + k])).collect();
@@ -430,20 +433,25 @@ impl DiscreteStates {
         let f = self.window_start(t);
         let w = self.window;
         // Abscissae relative to t (two-part subtraction keeps precision).
-        let x: Vec<f64> = (f..f + w).map(|i| -t.minus_f64_s(self.epochs_s[i])).collect();
+        let mut x = [0.0f64; MAX_WINDOW];
+        for (j, i) in (f..f + w).enumerate() {
+            x[j] = -t.minus_f64_s(self.epochs_s[i]);
+        }
+        let x = &x[..w];
         let mut s = StateKm::default();
+        let (mut p, mut v) = ([0.0f64; MAX_WINDOW], [0.0f64; MAX_WINDOW]);
         for axis in 0..3 {
+            for (j, i) in (f..f + w).enumerate() {
+                p[j] = self.states[i][axis];
+                v[j] = self.states[i][axis + 3];
+            }
             if self.hermite {
-                let p: Vec<f64> = (f..f + w).map(|i| self.states[i][axis]).collect();
-                let v: Vec<f64> = (f..f + w).map(|i| self.states[i][axis + 3]).collect();
-                let (val, der) = hermite_at_zero(&x, &p, &v);
+                let (val, der) = hermite_at_zero(x, &p[..w], &v[..w]);
                 s.position_km[axis] = val;
                 s.velocity_km_s[axis] = der;
             } else {
-                let p: Vec<f64> = (f..f + w).map(|i| self.states[i][axis]).collect();
-                let v: Vec<f64> = (f..f + w).map(|i| self.states[i][axis + 3]).collect();
-                s.position_km[axis] = lagrange_at_zero(&x, &p);
-                s.velocity_km_s[axis] = lagrange_at_zero(&x, &v);
+                s.position_km[axis] = lagrange_at_zero(x, &p[..w]);
+                s.velocity_km_s[axis] = lagrange_at_zero(x, &v[..w]);
             }
         }
         s
@@ -452,8 +460,9 @@ impl DiscreteStates {
 
 /// Lagrange interpolation at 0 through (x_i, y_i) (Neville's scheme).
 fn lagrange_at_zero(x: &[f64], y: &[f64]) -> f64 {
-    let mut p = y.to_vec();
     let n = x.len();
+    let mut p = [0.0f64; MAX_WINDOW];
+    p[..n].copy_from_slice(y);
     for m in 1..n {
         for i in 0..n - m {
             p[i] = (x[i + m] * p[i] - x[i] * p[i + 1]) / (x[i + m] - x[i]);
@@ -465,21 +474,29 @@ fn lagrange_at_zero(x: &[f64], y: &[f64]) -> f64 {
 /// Hermite interpolation at 0 through values y_i and derivatives dy_i at
 /// x_i: value and derivative (divided differences on doubled nodes).
 fn hermite_at_zero(x: &[f64], y: &[f64], dy: &[f64]) -> (f64, f64) {
+    // Stack buffers: windows hold at most MAX_WINDOW states (checked when the
+    // segment is read), so 2·MAX_WINDOW doubled nodes.
     let n = 2 * x.len();
-    let z: Vec<f64> = (0..n).map(|k| x[k / 2]).collect();
-    let mut q: Vec<f64> = (0..n).map(|k| y[k / 2]).collect();
-    // Newton divided-difference coefficients, column by column in place.
-    let mut coef = vec![0.0; n];
-    coef[0] = q[0];
+    let mut z = [0.0f64; 2 * MAX_WINDOW];
+    for k in 0..n {
+        z[k] = x[k / 2];
+    }
+    // Newton divided-difference coefficients, column by column in place
+    // (ascending k reads col[k + 1] before it is overwritten).
+    let mut coef = [0.0f64; 2 * MAX_WINDOW];
+    coef[0] = y[0];
     // First column: derivatives on repeated nodes.
-    let mut col: Vec<f64> = (0..n - 1).map(|k| if k % 2 == 0 { dy[k / 2] } else { (q[k + 1] - q[k]) / (z[k + 1] - z[k]) }).collect();
+    let mut col = [0.0f64; 2 * MAX_WINDOW];
+    for k in 0..n - 1 {
+        col[k] = if k % 2 == 0 { dy[k / 2] } else { (y[(k + 1) / 2] - y[k / 2]) / (z[k + 1] - z[k]) };
+    }
     coef[1] = col[0];
     for m in 2..n {
-        let next: Vec<f64> = (0..n - m).map(|k| (col[k + 1] - col[k]) / (z[k + m] - z[k])).collect();
-        coef[m] = next[0];
-        col = next;
+        for k in 0..n - m {
+            col[k] = (col[k + 1] - col[k]) / (z[k + m] - z[k]);
+        }
+        coef[m] = col[0];
     }
-    q.clear();
     // Evaluate the Newton form and its derivative at 0 (Horner).
     let (mut p, mut dp) = (coef[n - 1], 0.0);
     for k in (0..n - 1).rev() {

@@ -90,9 +90,16 @@ pub fn seconds_to_fs(seconds_s: f64) -> Option<i128> {
 /// The `f64` nearest to the exact quotient `num_fs / den_fs` (`den_fs > 0`).
 ///
 /// Used to turn femtoseconds of a day back into a fraction of that day, and
-/// femtoseconds into seconds, with a single correct rounding. The f64
-/// quotient is within one ulp of the exact value; the guess and its two
-/// neighbours are compared exactly in integer arithmetic.
+/// femtoseconds into seconds, with a single correct rounding (an exact tie,
+/// which these callers never meet, goes toward −∞). The f64 quotient is
+/// within a few ulp of the exact value; its integer significand is corrected
+/// by comparing `m · den` with `num · 2^k` exactly in 128-bit integers — one
+/// multiplication per step, no division.
+///
+/// # Accuracy
+/// Correctly rounded; identical to comparing the guess and its two
+/// neighbours exactly (the previous method, kept as the reference of the
+/// unit test `ratio_matches_three_candidate_reference` over 10⁶ cases).
 pub fn ratio_to_f64(num_fs: i128, den_fs: i128) -> f64 {
     debug_assert!(den_fs > 0);
     // Both operands exact in f64: IEEE division is already correctly rounded.
@@ -100,7 +107,95 @@ pub fn ratio_to_f64(num_fs: i128, den_fs: i128) -> f64 {
     if num_fs.abs() <= EXACT && den_fs <= EXACT {
         return num_fs as f64 / den_fs as f64;
     }
-    let guess = num_fs as f64 / den_fs as f64;
+    ratio_corrected(num_fs, den_fs).unwrap_or_else(|| ratio_three_candidates(num_fs, den_fs))
+}
+
+/// u128 → f64 for the first guess: exact rounding below 2^64 (hardware
+/// conversion), within one ulp above (two conversions and an add; the
+/// correction loop absorbs it).
+#[inline]
+fn u128_to_f64(x: u128) -> f64 {
+    let hi = (x >> 64) as u64;
+    if hi == 0 { x as u64 as f64 } else { hi as f64 * 18_446_744_073_709_551_616.0 + x as u64 as f64 }
+}
+
+/// The corrected-significand method of [`ratio_to_f64`]; `None` in the rare
+/// cases it does not handle (binade edges, huge or tiny quotients, overflow).
+#[inline]
+fn ratio_corrected(num_fs: i128, den_fs: i128) -> Option<f64> {
+    let neg = num_fs < 0;
+    let n = num_fs.unsigned_abs();
+    let d = den_fs as u128;
+    if n == 0 {
+        return Some(0.0);
+    }
+    let guess = u128_to_f64(n) / u128_to_f64(d);
+    let bits = guess.to_bits();
+    let exp_bits = ((bits >> 52) & 0x7ff) as i32;
+    if exp_bits == 0 || exp_bits == 0x7ff {
+        return None;
+    }
+    let e = exp_bits - 1075; // guess = m · 2^e, m ∈ [2^52, 2^53)
+    if e >= 0 || -e >= 1000 {
+        return None;
+    }
+    let k = (-e) as u32;
+    if n.leading_zeros() <= k {
+        return None;
+    }
+    let rhs = n << k; // num · 2^k: candidates m compare as m · d against it
+    let mut m = ((bits & 0x000f_ffff_ffff_ffff) | (1 << 52)) as u128;
+    for _ in 0..4 {
+        let lhs = m.checked_mul(d)?;
+        // 2·(m·d − rhs) against d: within half a step of m?
+        let (above, diff) = if lhs >= rhs { (true, lhs - rhs) } else { (false, rhs - lhs) };
+        let twice = diff.checked_mul(2)?;
+        let settle = if twice < d {
+            true
+        } else if twice == d {
+            // Exact tie between m and its neighbour: toward −∞, i.e. the
+            // smaller magnitude for a positive quotient, the larger for a
+            // negative one.
+            match (neg, above) {
+                (false, true) => {
+                    m -= 1;
+                }
+                (true, false) => {
+                    m += 1;
+                }
+                _ => {}
+            }
+            true
+        } else {
+            if above {
+                m -= 1;
+            } else {
+                m += 1;
+            }
+            false
+        };
+        if !((1u128 << 52)..(1u128 << 53)).contains(&m) {
+            return None;
+        }
+        if settle {
+            let v = m as f64 * f64::from_bits(((1023 + e) as u64) << 52);
+            return Some(if neg { -v } else { v });
+        }
+    }
+    None
+}
+
+/// The guess and its two neighbours compared exactly (the fallback of
+/// [`ratio_to_f64`] and the reference of its tests).
+fn ratio_three_candidates(num_fs: i128, den_fs: i128) -> f64 {
+    best_of_three(num_fs, den_fs, num_fs as f64 / den_fs as f64)
+}
+
+/// Of `guess` and its two neighbours, the one nearest to `num_fs / den_fs`
+/// (compared exactly; ties toward −∞). Correct when the quotient lies within
+/// one ulp of `guess`, which holds whenever `den_fs` is exact in f64 (every
+/// day length and unit lapse divides by).
+fn best_of_three(num_fs: i128, den_fs: i128, guess: f64) -> f64 {
     let cands = [guess.next_down(), guess, guess.next_up()];
     let parts = cands.map(decompose);
     let e_min = parts.iter().map(|p| p.1).min().unwrap_or(0);
@@ -190,6 +285,35 @@ pub fn fraction_digits(num: i128, den: i128, places: usize) -> (String, bool) {
 
 #[cfg(test)]
 mod tests {
+
+    /// The corrected-significand method is correctly rounded (no neighbour
+    /// is nearer, compared exactly) and, for denominators exact in f64 (all
+    /// that lapse uses), equals the previous three-candidate method bit for
+    /// bit, so outputs do not change.
+    #[test]
+    fn ratio_matches_three_candidate_reference() {
+        let mut x: u64 = 0x9E37_79B9_7F4A_7C15;
+        let mut next = || {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            x
+        };
+        let dens: [i128; 7] = [FS_PER_S, FS_PER_DAY, 86_401 * FS_PER_S, 86_399 * FS_PER_S, FS_PER_DAY / 2, FS_PER_DAY / 8, 3];
+        for i in 0..1_000_000u64 {
+            let den = if i % 8 == 7 { (next() as i128 >> (next() % 40)) | 1 } else { dens[(i % 7) as usize] };
+            let mag = next() % 100;
+            let raw = ((next() as i128) << 64 | next() as i128) >> (30 + mag as u32);
+            let num = if i % 3 == 0 { raw % den } else { raw };
+            let a = ratio_to_f64(num, den);
+            assert_eq!(best_of_three(num, den, a).to_bits(), a.to_bits(), "{num} / {den}: {a:e} is not the nearest double");
+            if (den as f64) as i128 == den {
+                let b = if num.abs() <= 1 << 53 && den <= 1 << 53 { num as f64 / den as f64 } else { ratio_three_candidates(num, den) };
+                assert_eq!(a.to_bits(), b.to_bits(), "{num} / {den}: {a:e} vs {b:e}");
+            }
+        }
+    }
+
     use super::*;
 
     #[test]

@@ -134,11 +134,12 @@ impl TdbGrid {
 
     /// Interpolated geocentric TDB − TT (s) at a TT epoch, `None` outside.
     pub fn at(&self, tt_fs: i128) -> Option<f64> {
-        let k = tt_fs.div_euclid(self.step_fs) as i64 - self.first_node;
+        let node = tt_fs.div_euclid(self.step_fs);
+        let k = node as i64 - self.first_node;
         if k < TDB_PAD - 1 || (k + TDB_PAD) as usize >= self.values_s.len() {
             return None;
         }
-        let u = ratio_to_f64(tt_fs.rem_euclid(self.step_fs), self.step_fs); // in [0, 1)
+        let u = ratio_to_f64(tt_fs - node * self.step_fs, self.step_fs); // in [0, 1)
         let v = &self.values_s[(k + 1 - TDB_PAD) as usize..=(k + TDB_PAD) as usize];
         Some(crate::interp::uniform_lagrange::<TDB_GRID_POINTS>(v, u))
     }
