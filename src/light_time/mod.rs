@@ -92,11 +92,21 @@ impl ShapiroSet {
 ///
 /// # Errors
 /// The transmitter's state function's error, or non-convergence.
-pub fn solve_backward<F>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, mut tx_state: F) -> Result<Leg, String>
+pub fn solve_backward<F>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tx_state: F) -> Result<Leg, String>
 where
     F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String>,
 {
-    let mut tau_s = 0.0;
+    solve_backward_from(t_rx, x_rx_m, shapiro, 0.0, tx_state)
+}
+
+/// [`solve_backward`] starting the fixed-point iteration from a light time
+/// `tau0_s` (s) already close to the solution (fewer transmitter states).
+/// The converged leg satisfies the same criterion whatever the start.
+pub fn solve_backward_from<F>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tau0_s: f64, mut tx_state: F) -> Result<Leg, String>
+where
+    F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String>,
+{
+    let mut tau_s = tau0_s;
     for it in 1..=MAX_ITERATIONS {
         let t_tx = t_rx.plus_fs(-seconds_to_fs(tau_s).ok_or("non-finite light time")?).map_err(|e| e.to_string())?;
         let (x_tx, v_tx) = tx_state(&t_tx)?;
