@@ -232,8 +232,12 @@ pub fn assemble(df: &DataFrame, path: &Path, ok: &[bool], reasons: &[String], co
     let mut all = vec![kept.column("obs_id").map_err(perr)?.clone()];
     all.extend(computed);
     all.extend(kept.columns().iter().filter(|c| c.name().as_str() != "obs_id" && !drop.contains(&c.name().as_str())).cloned());
-    let out = DataFrame::new_infer_height(all).map_err(perr)?;
+    let mut out = DataFrame::new_infer_height(all).map_err(perr)?;
     rejects.with_column(Column::new("reason".into(), reasons.to_vec())).map_err(perr)?;
+    // Input columns may arrive in several chunks (row groups of a slice);
+    // writers need the columns of a frame chunked alike (no-op otherwise).
+    out.rechunk_mut();
+    rejects.rechunk_mut();
     Ok((out, rejects))
 }
 
