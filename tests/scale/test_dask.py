@@ -83,6 +83,22 @@ def main():
                     cli("run", pipeline, "--output", whole, "--no-plots", "--quiet")
                     assert canonical([pq.read_table(whole)]) == a, "tracking: Dask ≠ unpartitioned CLI run"
                     print(f"  {name}: also = the CLI run on the unpartitioned input")
+            # A malformed batch raises LapseError in the client (the CLI's
+            # message) and the worker survives: the same processes answer next.
+            bad = d / "bad.parquet"
+            pq.write_table(pq.read_table(pipeline_input(cases[0][0])).drop_columns(["freq_mhz"]), bad)
+            pids_before = set(client.run(os.getpid).values())
+            try:
+                client.submit(run_partition, str(bad), str(cases[0][0]), str(d), pure=False).result()
+            except Exception as e:  # the worker's exception, re-raised here
+                assert type(e).__name__ == "LapseError" and "missing column 'freq_mhz'" in str(e), repr(e)
+                print(f"  malformed batch on a worker: {type(e).__name__}: {e}")
+            else:
+                raise AssertionError("malformed batch: no exception")
+            assert set(client.run(os.getpid).values()) == pids_before, "a worker process was replaced"
+            ok = client.submit(run_partition, str(files[0]), str(cases[-1][0]), str(d / cases[-1][0].stem / "dask"), pure=False).result()
+            assert ok["pid"] in pids_before
+            print("  workers still alive (same processes) and answering")
     print("dask: OK")
 
 
