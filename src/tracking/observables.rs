@@ -216,9 +216,12 @@ impl TrackingContext {
         // result meets the same 0.1 ps criterion as exact iteration from zero.
         let station = |t: &Epoch| self.earth.station_state_at(&self.ephemeris, tx, t).map_err(|e| format!("geometry unavailable: {e}"));
         let t_guess = t2.plus_fs(-s_to_fs(down.light_time_s)?).map_err(|e| e.to_string())?;
-        let s0 = station(&t_guess)?;
+        // The anchor: one pass at the UTC of the geocentre's TDB at t_guess;
+        // its state is exact at its own TDB (s0.tdb, within 2.1 µs of t_guess).
+        let utc_guess = self.earth.time.convert(t_guess, TimeScale::Utc, 0.0).map_err(|e| e.to_string())?;
+        let s0 = self.earth.station_state(&self.ephemeris, tx, &utc_guess).map_err(|e| format!("geometry unavailable: {e}"))?;
         let uniform = solve_backward_from(&t2, &x_sc, &sh_up, down.light_time_s, |t| {
-            let dt_s = (t.label_fs() - t_guess.label_fs()) as f64 * 1e-15;
+            let dt_s = (t.label_fs() - s0.tdb.label_fs()) as f64 * 1e-15;
             Ok((s0.bcrs_position_m + s0.bcrs_velocity_m_s * dt_s, s0.bcrs_velocity_m_s))
         })
         .map_err(|e| format!("up leg: {e}"))?;
