@@ -423,7 +423,9 @@ struct BatchFrames {
     out: DataFrame,
     rejects: DataFrame,
     reasons: Vec<String>,
-    sites: Vec<String>,
+    /// Site of each accepted row: index into `site_names`.
+    site_names: Vec<String>,
+    site_idx: Vec<u32>,
     rejected_sites: Vec<String>,
     bat_mjd: Vec<f64>,
     residual_s: Vec<f64>,
@@ -443,34 +445,64 @@ fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_pa
     // Exact day fractions (one u128 division each): in parallel, order kept.
     use rayon::prelude::*;
     let (tdb, bat): (Vec<(i64, f64)>, Vec<(i64, f64)>) = good.par_iter().map(|g| (parts(&g.tdb), parts(&g.bat))).unzip();
+    // One pass over the results into the columns (results are large
+    // structs: one pass per column was memory-bound at 10⁶ rows).
+    let (ng, nb) = (good.len(), lp.ctx.shapiro.len());
+    let mut f64_cols: Vec<Vec<f64>> = (0..6 + nb).map(|_| Vec::with_capacity(ng)).collect();
+    let (mut pulse, mut clock_x, mut eop_p) = (Vec::with_capacity(ng), Vec::with_capacity(ng), Vec::with_capacity(ng));
+    for g in &good {
+        for (c, v) in f64_cols.iter_mut().zip([g.clock_s, g.einstein_s, g.roemer_s, g.parallax_s, g.shapiro_s, g.dispersion_s].iter().chain(&g.shapiro_body_s[..nb])) {
+            c.push(*v);
+        }
+        pulse.push(g.pulse_number);
+        clock_x.push(g.clock_extrapolated);
+        eop_p.push(g.eop_predicted);
+    }
+    let mut f64_cols = f64_cols.into_iter();
+    let mut next_col = || f64_cols.next().unwrap_or_default();
     let mut computed = vec![
         Column::new("tdb_mjd_day".into(), tdb.iter().map(|x| x.0).collect::<Vec<i64>>()),
         col_f("tdb_mjd_frac", tdb.iter().map(|x| x.1).collect()),
         Column::new("bat_mjd_day".into(), bat.iter().map(|x| x.0).collect::<Vec<i64>>()),
         col_f("bat_mjd_frac", bat.iter().map(|x| x.1).collect()),
-        col_f("clock_s", good.iter().map(|g| g.clock_s).collect()),
-        col_f("einstein_s", good.iter().map(|g| g.einstein_s).collect()),
-        col_f("roemer_s", good.iter().map(|g| g.roemer_s).collect()),
-        col_f("parallax_s", good.iter().map(|g| g.parallax_s).collect()),
-        col_f("shapiro_s", good.iter().map(|g| g.shapiro_s).collect()),
+        col_f("clock_s", next_col()),
+        col_f("einstein_s", next_col()),
+        col_f("roemer_s", next_col()),
+        col_f("parallax_s", next_col()),
+        col_f("shapiro_s", next_col()),
     ];
-    for (k, b) in lp.ctx.shapiro.iter().enumerate() {
-        computed.push(col_f(&format!("shapiro_{}_s", b.name), good.iter().map(|g| g.shapiro_body_s[k]).collect()));
+    let dispersion = next_col();
+    for b in &lp.ctx.shapiro {
+        computed.push(col_f(&format!("shapiro_{}_s", b.name), next_col()));
     }
-    computed.push(col_f("dispersion_s", good.iter().map(|g| g.dispersion_s).collect()));
+    computed.push(col_f("dispersion_s", dispersion));
     computed.push(col_f("residual_s", residual.clone()));
-    computed.push(Column::new("pulse_number".into(), good.iter().map(|g| g.pulse_number).collect::<Vec<i64>>()));
-    computed.push(Column::new("clock_extrapolated".into(), good.iter().map(|g| g.clock_extrapolated).collect::<Vec<bool>>()));
-    computed.push(Column::new("eop_predicted".into(), good.iter().map(|g| g.eop_predicted).collect::<Vec<bool>>()));
+    computed.push(Column::new("pulse_number".into(), pulse));
+    computed.push(Column::new("clock_extrapolated".into(), clock_x));
+    computed.push(Column::new("eop_predicted".into(), eop_p));
     let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
     let (out, rejects) = assemble(df, input_path, &ok, &reasons, computed, &[])?;
-    let site = |i: usize| input.site[i].clone().unwrap_or_else(|| "(null)".into());
+    let site = |i: usize| input.site[i].as_deref().unwrap_or("(null)");
+    // Accepted rows' sites as indices into a short name table (no string per row).
+    let (mut site_names, mut site_idx): (Vec<String>, Vec<u32>) = (Vec::new(), Vec::with_capacity(ng));
+    for i in (0..results.len()).filter(|i| ok[*i]) {
+        let name = site(i);
+        let j = match site_names.iter().position(|n| n == name) {
+            Some(j) => j,
+            None => {
+                site_names.push(name.to_string());
+                site_names.len() - 1
+            }
+        };
+        site_idx.push(j as u32);
+    }
     Ok(BatchFrames {
         out,
         rejects,
         reasons,
-        sites: (0..results.len()).filter(|i| ok[*i]).map(site).collect(),
-        rejected_sites: (0..results.len()).filter(|i| !ok[*i]).map(site).collect(),
+        site_names,
+        site_idx,
+        rejected_sites: (0..results.len()).filter(|i| !ok[*i]).map(|i| site(i).to_string()).collect(),
         bat_mjd: bat.iter().map(|(d, f)| *d as f64 + f).collect(),
         residual_s: residual,
         sigma_s,
@@ -520,11 +552,11 @@ fn finish_partition<S: AsRef<str>>(lp: &LoadedPulsar, summary: &mut RunSummary, 
 }
 
 /// Plots of a partition (at most 50 000 points per plot: every k-th row).
-fn partition_plots(output_path: &Path, sites: &[String], bat_mjd: &[f64], residual: &[f64], sigma_s: &[f64]) -> Result<Vec<PathBuf>, PipelineError> {
+fn partition_plots<S: AsRef<str>>(output_path: &Path, sites: &[S], bat_mjd: &[f64], residual: &[f64], sigma_s: &[f64]) -> Result<Vec<PathBuf>, PipelineError> {
     let step = sites.len().div_ceil(50_000).max(1);
     let idx: Vec<usize> = (0..sites.len()).step_by(step).collect();
     let pick = |v: &[f64], scale: f64| idx.iter().map(|i| v[*i] * scale).collect::<Vec<f64>>();
-    let labels: Vec<String> = idx.iter().map(|i| sites[*i].clone()).collect();
+    let labels: Vec<String> = idx.iter().map(|i| sites[*i].as_ref().to_string()).collect();
     let groups = crate::plots::group(&labels, &pick(bat_mjd, 1.0), &pick(residual, 1e6), &pick(sigma_s, 1e6));
     crate::plots::residual_plots(output_path, "residuals", "pulsar timing residuals", "barycentric arrival time (MJD, TDB)", "residual (µs)", &groups).map_err(|message| PipelineError::Invalid { path: output_path.into(), message })
 }
@@ -568,7 +600,8 @@ fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &
     let (input, mut f, offset) = pulsar_frames(lp, &df, input_path)?;
     let mut summary = RunSummary::new(df.height(), f.out.height(), f.rejects.height(), output_path, &f.reasons);
     observations_provenance(&mut prov, input_path, &input.day);
-    finish_partition(lp, &mut summary, &mut prov, &f.sites, &f.rejected_sites, &f.residual_s, &f.sigma_s, offset, f.eop_predicted, f.clock_extrapolated);
+    let sites: Vec<&str> = f.site_idx.iter().map(|i| f.site_names[*i as usize].as_str()).collect();
+    finish_partition(lp, &mut summary, &mut prov, &sites, &f.rejected_sites, &f.residual_s, &f.sigma_s, offset, f.eop_predicted, f.clock_extrapolated);
     let metadata = prov.finish();
     // Rejects first, output last: an existing output marks a complete partition.
     let t0 = std::time::Instant::now();
@@ -576,7 +609,7 @@ fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &
     write_parquet(&mut f.out, output_path, &metadata)?;
     tracing::debug!(write_s = t0.elapsed().as_secs_f64(), "wrote {}", output_path.display());
     if plots {
-        summary.plots = partition_plots(output_path, &f.sites, &f.bat_mjd, &f.residual_s, &f.sigma_s)?;
+        summary.plots = partition_plots(output_path, &sites, &f.bat_mjd, &f.residual_s, &f.sigma_s)?;
     }
     Ok(summary)
 }
@@ -638,7 +671,8 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
         }
         rows_out += f.out.height();
         rows_rej += f.rejects.height();
-        for (k, s) in f.sites.iter().enumerate() {
+        for (k, li) in f.site_idx.iter().enumerate() {
+            let s = &f.site_names[*li as usize];
             let i = match site_names.iter().position(|n| n == s) {
                 Some(i) => i,
                 None => {
