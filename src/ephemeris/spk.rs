@@ -306,14 +306,14 @@ impl SpkKernel {
                 return Err(kernel_err(path, format!("segment {k} (target {}) points outside the file (doubles {a}..{b}, file {} bytes): truncated?", s.target_id, data.len())));
             }
             let raw = &data[(a as usize - 1) * 8..b as usize * 8];
-            let doubles: Vec<f64> = raw.chunks_exact(8).map(|c| f64::from_ne_bytes(c.try_into().expect("8 bytes"))).collect();
+            let doubles = || -> Vec<f64> { raw.chunks_exact(8).map(|c| f64::from_ne_bytes(c.try_into().expect("8 bytes"))).collect() };
             if !s.start_epoch_et_s.is_finite() || !s.end_epoch_et_s.is_finite() || s.end_epoch_et_s < s.start_epoch_et_s {
                 return Err(kernel_err(path, format!("segment {k} (target {}) has a bad coverage", s.target_id)));
             }
             let seg_err = |m: String| kernel_err(path, format!("segment {k} (target {}, type {}): {m}", s.target_id, s.data_type_i));
             let data = match s.data_type_i {
-                2 | 3 => SegmentData::Chebyshev(parse_chebyshev(&doubles, s.data_type_i == 3).map_err(seg_err)?),
-                9 | 13 => SegmentData::Discrete(parse_discrete(&doubles, s.data_type_i == 13).map_err(seg_err)?),
+                2 | 3 => SegmentData::Chebyshev(parse_chebyshev(raw, s.data_type_i == 3).map_err(seg_err)?),
+                9 | 13 => SegmentData::Discrete(parse_discrete(&doubles(), s.data_type_i == 13).map_err(seg_err)?),
                 _ => SegmentData::Unsupported,
             };
             segments.push(Segment {
@@ -330,11 +330,15 @@ impl SpkKernel {
     }
 }
 
-fn parse_chebyshev(d: &[f64], with_velocity: bool) -> Result<ChebyshevData, String> {
-    if d.len() < 4 + 5 {
-        return Err(format!("only {} doubles", d.len()));
+/// Types 2/3 straight from the segment's bytes (native-endian doubles): the
+/// coefficients are copied once, into the records.
+fn parse_chebyshev(raw: &[u8], with_velocity: bool) -> Result<ChebyshevData, String> {
+    let n_doubles = raw.len() / 8;
+    let at = |i: usize| f64::from_ne_bytes(raw[i * 8..i * 8 + 8].try_into().expect("8 bytes"));
+    if n_doubles < 4 + 5 {
+        return Err(format!("only {n_doubles} doubles"));
     }
-    let t = &d[d.len() - 4..];
+    let t = [at(n_doubles - 4), at(n_doubles - 3), at(n_doubles - 2), at(n_doubles - 1)];
     let (init_s, interval_s, rsize, n) = (t[0], t[1], t[2], t[3]);
     if !init_s.is_finite() || !(interval_s.is_finite() && interval_s > 0.0) {
         return Err(format!("bad directory: init {init_s}, interval {interval_s}"));
@@ -351,10 +355,10 @@ fn parse_chebyshev(d: &[f64], with_velocity: bool) -> Result<ChebyshevData, Stri
     if n_coeffs > MAX_COEFFS {
         return Err(format!("degree {} exceeds {}", n_coeffs - 1, MAX_COEFFS - 1));
     }
-    if record_len.checked_mul(n_records).map(|x| x + 4) != Some(d.len()) {
-        return Err(format!("{} records of {record_len} doubles do not fill the segment's {} doubles", n_records, d.len()));
+    if record_len.checked_mul(n_records).map(|x| x + 4) != Some(n_doubles) {
+        return Err(format!("{} records of {record_len} doubles do not fill the segment's {} doubles", n_records, n_doubles));
     }
-    let records = d[..record_len * n_records].to_vec();
+    let records: Vec<f64> = raw[..record_len * n_records * 8].chunks_exact(8).map(|c| f64::from_ne_bytes(c.try_into().expect("8 bytes"))).collect();
     if records.iter().any(|x| !x.is_finite()) {
         return Err("non-finite coefficient".into());
     }
@@ -542,7 +546,7 @@ mod tests {
         let rec = vec![10.0, 5.0, 3.0, 2.0, 0.0, -1.0, 0.0, 0.0, 0.5, 0.0, 0.5];
         let mut d = rec.clone();
         d.extend([5.0, 10.0, rec.len() as f64, 1.0]);
-        let c = parse_chebyshev(&d, false).unwrap();
+        let c = parse_chebyshev(&to_bytes(&d), false).unwrap();
         let seg = Segment { target: 1, center: 0, frame: 1, spk_type: 2, start_s: 5.0, end_s: 15.0, data: SegmentData::Chebyshev(c) };
         let t = TdbSeconds::new(12, 0.5); // τ = 0.5
         let s = seg.evaluate(&t).unwrap();
@@ -555,9 +559,16 @@ mod tests {
 
     #[test]
     fn corrupt_directories_are_errors() {
-        assert!(parse_chebyshev(&[0.0; 8], false).is_err());
+        assert!(parse_chebyshev(&to_bytes(&[0.0; 8]), false).is_err());
         let mut d = vec![10.0, 5.0, 3.0, 2.0, 0.0, -1.0, 0.0, 0.0, 0.5, 0.0, 0.5];
         d.extend([5.0, 10.0, 11.0, 2.0]); // claims 2 records, holds 1
-        assert!(parse_chebyshev(&d, false).is_err());
+        assert!(parse_chebyshev(&to_bytes(&d), false).is_err());
+        // A segment whose length is not a whole number of doubles is refused too.
+        assert!(parse_chebyshev(&[0u8; 77], false).is_err());
+    }
+
+    /// Doubles as the native-endian bytes of a segment.
+    fn to_bytes(d: &[f64]) -> Vec<u8> {
+        d.iter().flat_map(|x| x.to_ne_bytes()).collect()
     }
 }
