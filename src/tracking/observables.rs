@@ -28,7 +28,7 @@ use nalgebra::Vector3;
 use crate::delays::ShapiroBody;
 use crate::earth::{EarthModel, Station, StationCatalog};
 use crate::ephemeris::{Ephemeris, TdbSeconds};
-use crate::light_time::{Leg, ShapiroSet, solve_backward, solve_backward_from};
+use crate::light_time::{Leg, ShapiroSet, solve_backward_from};
 use crate::time::femto::{FS_PER_S, ratio_to_f64, seconds_to_fs};
 use crate::time::relativistic::L_B;
 use crate::time::{Epoch, TimeScale};
@@ -187,7 +187,21 @@ impl TrackingContext {
         let x_rx = st_rx.bcrs_position_m;
         let t3s = TdbSeconds::from_epoch(&t3).map_err(|e| e.to_string())?;
         let sh_down = ShapiroSet::for_receiver(&self.ephemeris, &self.shapiro, self.ppn_gamma, &t3s, &x_rx)?;
-        let down = solve_backward(&t3, &x_rx, &sh_down, |t| self.spacecraft(t)).map_err(|e| format!("down leg: {e}"))?;
+        // Down leg: the first light time from the spacecraft at t3, then the
+        // spacecraft moving uniformly from its state there (the remaining
+        // change of the light time, ≲ v/c · τ ≈ 0.1 s, moves it ≤ 1e-4 m
+        // under ≤ 0.02 m/s² of acceleration), then exact states — usually one
+        // — to the same 0.1 ps criterion.
+        let (x0, _) = self.spacecraft(&t3)?;
+        let tau1_s = (x_rx - x0).norm() / crate::delays::C_M_S;
+        let t1 = t3.plus_fs(-s_to_fs(tau1_s)?).map_err(|e| e.to_string())?;
+        let (x1, v1) = self.spacecraft(&t1)?;
+        let uniform = solve_backward_from(&t3, &x_rx, &sh_down, tau1_s, |t| {
+            let dt_s = (t.label_fs() - t1.label_fs()) as f64 * 1e-15;
+            Ok((x1 + v1 * dt_s, v1))
+        })
+        .map_err(|e| format!("down leg: {e}"))?;
+        let down = solve_backward_from(&t3, &x_rx, &sh_down, uniform.light_time_s, |t| self.spacecraft(t)).map_err(|e| format!("down leg: {e}"))?;
         let clock_rx_s = ratio_to_f64(t3.label_fs() - st_rx.tt.label_fs(), FS_PER_S);
         let los = down.x_tx_m - x_rx;
         let up_vec = st_rx.up_gcrs;
