@@ -56,7 +56,7 @@ fn delays_match_erfa_and_jplephem() {
         ("time_scale = \"site\"", "time_scale = \"utc\""),
         ("shapiro_bodies = [\"sun\", \"venus\", \"jupiter\", \"saturn\", \"uranus\", \"neptune\"]", "shapiro_bodies = [\"sun\"]"),
     ]);
-    let mut lp = load_pulsar(&PipelineFile::read(&p).unwrap(), None).unwrap();
+    let mut lp = load_pulsar(&PipelineFile::read(&p).unwrap()).unwrap();
     let text = std::fs::read_to_string(root().join("tests/fixtures/pulsar_sweep.csv")).unwrap();
     let rows: Vec<Vec<&str>> = text.lines().filter(|l| !l.starts_with('#')).skip(1).map(|l| l.split(',').collect()).collect();
     assert!(rows.len() >= 1000);
@@ -208,8 +208,8 @@ fn fast_path_agrees_with_direct_path() {
     const FAST_VS_DIRECT_POSITION_M: f64 = 1e-3;
     let d = tmpdir("fastpath");
     let p = pipeline(&d, Path::new("/unused.parquet"), &[]);
-    let direct = load_pulsar(&PipelineFile::read(&p).unwrap(), None).unwrap();
-    let mut fast = load_pulsar(&PipelineFile::read(&p).unwrap(), None).unwrap();
+    let direct = load_pulsar(&PipelineFile::read(&p).unwrap()).unwrap();
+    let mut fast = load_pulsar(&PipelineFile::read(&p).unwrap()).unwrap();
     fast.ctx.earth.set_cip_grid(58_600.0, 60_900.0);
     let st = direct.ctx.stations.get("KESTREL-1").unwrap().clone();
     let (mut mt, mut mp) = (0.0f64, 0.0f64);

@@ -16,8 +16,8 @@
 //! ```no_run
 //! use std::path::Path;
 //! let mut engine = lapse::pipeline::batch::BatchEngine::load(Path::new("pipelines/pulsar_demo.toml"))?;
-//! let df = lapse::io::read_parquet(Path::new("examples/pulsar_demo/arrivals.parquet"))?;
-//! let out = engine.process(&df, Path::new("arrivals.parquet"))?;
+//! let df = lapse::io::read_parquet(Path::new("data/demo/pulsar_toas.parquet"))?;
+//! let out = engine.process(&df, Path::new("pulsar_toas.parquet"))?;
 //! println!("{} rows, {} rejected", out.output.height(), out.rejects.height());
 //! # Ok::<(), Box<dyn std::error::Error>>(())
 //! ```
@@ -62,9 +62,9 @@ impl BatchEngine {
     /// Loads the shared inputs of an already-read pipeline.
     pub fn from_file(file: PipelineFile) -> Result<Self, PipelineError> {
         let loaded = match file.kind.as_str() {
-            "timescales" => Loaded::Timescales(Box::new(load_timescales(&file, None)?)),
-            "pulsar" => Loaded::Pulsar(Box::new(load_pulsar(&file, None)?)),
-            "tracking" => Loaded::Tracking(Box::new(load_tracking(&file, None)?)),
+            "timescales" => Loaded::Timescales(Box::new(load_timescales(&file)?)),
+            "pulsar" => Loaded::Pulsar(Box::new(load_pulsar(&file)?)),
+            "tracking" => Loaded::Tracking(Box::new(load_tracking(&file)?)),
             other => return Err(PipelineError::UnknownKind { path: file.path.clone(), kind: other.into(), known: KINDS.join(", ") }),
         };
         Ok(Self { file, loaded })

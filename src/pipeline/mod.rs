@@ -134,6 +134,18 @@ pub struct RunOptions {
     pub progress: Option<std::sync::Arc<std::sync::atomic::AtomicUsize>>,
 }
 
+impl RunOptions {
+    /// Applies `--input` / `--output` to a loaded pipeline's paths.
+    pub fn override_paths(&self, input: &mut PathBuf, output: &mut PathBuf) {
+        if let Some(i) = &self.input {
+            *input = i.clone();
+        }
+        if let Some(o) = &self.output {
+            *output = o.clone();
+        }
+    }
+}
+
 impl Default for RunOptions {
     fn default() -> Self {
         Self { input: None, output: None, chunk_rows: DEFAULT_CHUNK_ROWS, plots: true, progress: None }
@@ -143,18 +155,9 @@ impl Default for RunOptions {
 /// Default rows per parallel work unit.
 pub const DEFAULT_CHUNK_ROWS: usize = 4096;
 
-/// Runs a pipeline file of any kind.
+/// Runs a pipeline file of any kind (loading its shared inputs).
 pub fn run(path: &Path, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
-    let file = PipelineFile::read(path)?;
-    if opts.chunk_rows == 0 {
-        return Err(PipelineError::Invalid { path: path.into(), message: "chunk size must be at least 1 row".into() });
-    }
-    match file.kind.as_str() {
-        "timescales" => run_timescales(&file, opts),
-        "pulsar" => run_pulsar(&file, opts),
-        "tracking" => tracking::run_tracking(&file, opts),
-        other => Err(PipelineError::UnknownKind { path: path.into(), kind: other.into(), known: KINDS.join(", ") }),
-    }
+    run_prepared(preflight::Prepared { file: PipelineFile::read(path)?, loaded: None }, opts)
 }
 
 /// Runs a pipeline the preflight already read and loaded

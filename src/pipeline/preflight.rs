@@ -291,7 +291,7 @@ pub fn preflight_prepared(path: &Path, input: Option<&Path>) -> (Preflight, Opti
 }
 
 fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::pulsar::LoadedPulsar> {
-    let lp = match super::pulsar::load_pulsar(file, None) {
+    let lp = match super::pulsar::load_pulsar(file) {
         Ok(lp) => lp,
         Err(e) => {
             p.add(Level::Unusable, e.to_string());
@@ -334,7 +334,7 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
 }
 
 fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::tracking::LoadedTracking> {
-    let lt = match super::tracking::load_tracking(file, None) {
+    let lt = match super::tracking::load_tracking(file) {
         Ok(lt) => lt,
         Err(e) => {
             p.add(Level::Unusable, e.to_string());

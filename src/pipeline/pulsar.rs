@@ -156,7 +156,7 @@ pub struct LoadedPulsar {
 
 /// Loads everything a pulsar pipeline shares (kernels, EOP, stations,
 /// clocks, model) once.
-pub fn load_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedPulsar, PipelineError> {
+pub fn load_pulsar(file: &PipelineFile) -> Result<LoadedPulsar, PipelineError> {
     let cfg: PulsarPipeline = file.parse()?;
     let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
     let input_is_site_clock = match cfg.input.time_scale.as_str() {
@@ -240,7 +240,7 @@ pub fn load_pulsar(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedP
     Ok(LoadedPulsar {
         ctx,
         input_path: file.resolve(&cfg.input.path),
-        output_path: output.map(Path::to_path_buf).unwrap_or_else(|| file.resolve(&cfg.output.path)),
+        output_path: file.resolve(&cfg.output.path),
         subtract_weighted_mean: cfg.residuals.subtract_weighted_mean,
         inputs,
         constants,
@@ -387,17 +387,12 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
 /// Runs a pulsar pipeline (one input file, or every partition of a folder
 /// or glob, skipping partitions whose outputs are up to date).
 pub fn run_pulsar(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
-    run_pulsar_loaded(file, load_pulsar(file, None)?, opts)
+    run_pulsar_loaded(file, load_pulsar(file)?, opts)
 }
 
 /// [`run_pulsar`] with the shared inputs already loaded (by the preflight).
 pub fn run_pulsar_loaded(file: &PipelineFile, mut lp: LoadedPulsar, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
-    if let Some(o) = &opts.output {
-        lp.output_path = o.clone();
-    }
-    if let Some(i) = &opts.input {
-        lp.input_path = i.clone();
-    }
+    opts.override_paths(&mut lp.input_path, &mut lp.output_path);
     lp.ctx.chunk_rows = opts.chunk_rows;
     lp.ctx.progress = opts.progress.clone();
     let mut base = shared_provenance(file, &lp.inputs, &lp.constants, &lp.ctx.shapiro, lp.ctx.ppn_gamma)?;
@@ -807,7 +802,7 @@ pub fn gaussian(seed: u64, i: u64) -> f64 {
 /// Returns the number of rows written.
 pub fn synthesize(file: &PipelineFile, plan: &Path, out: &Path, noise: SynthNoise, seed: u64) -> Result<usize, PipelineError> {
     use rayon::prelude::*;
-    let mut lp = load_pulsar(file, None)?;
+    let mut lp = load_pulsar(file)?;
     let rows = read_plan(plan)?;
     if let (Some(lo), Some(hi)) = (rows.iter().map(|r| r.mjd).reduce(f64::min), rows.iter().map(|r| r.mjd).reduce(f64::max)) {
         lp.ctx.earth.set_cip_grid(lo.floor(), hi.ceil() + 1.0);

@@ -75,7 +75,7 @@ pub struct LoadedTimescales {
 }
 
 /// Reads a `timescales` pipeline and loads its leap-second table once.
-pub fn load_timescales(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedTimescales, PipelineError> {
+pub fn load_timescales(file: &PipelineFile) -> Result<LoadedTimescales, PipelineError> {
     let cfg: TimescalesPipeline = file.parse()?;
     let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
     let in_scale: TimeScale = cfg.input.scale.parse().map_err(|e: crate::time::TimeError| invalid(format!("[input] scale: {e}")))?;
@@ -103,7 +103,7 @@ pub fn load_timescales(file: &PipelineFile, output: Option<&Path>) -> Result<Loa
         out_scales,
         leap_path,
         input_path: file.resolve(&cfg.input.path),
-        output_path: output.map(Path::to_path_buf).unwrap_or_else(|| file.resolve(&cfg.output.path)),
+        output_path: file.resolve(&cfg.output.path),
         chunk_rows: super::DEFAULT_CHUNK_ROWS,
         progress: None,
     })
@@ -150,10 +150,8 @@ pub fn timescales_batch(l: &LoadedTimescales, df: &DataFrame, source: &Path) -> 
 
 /// Runs a `timescales` pipeline.
 pub fn run_timescales(file: &PipelineFile, opts: &super::RunOptions) -> Result<RunSummary, PipelineError> {
-    let mut l = load_timescales(file, opts.output.as_deref())?;
-    if let Some(i) = &opts.input {
-        l.input_path = i.clone();
-    }
+    let mut l = load_timescales(file)?;
+    opts.override_paths(&mut l.input_path, &mut l.output_path);
     l.chunk_rows = opts.chunk_rows;
     l.progress = opts.progress.clone();
     let mut prov = super::Provenance::start(file);

@@ -85,7 +85,7 @@ pub struct LoadedTracking {
 }
 
 /// Loads the shared inputs of a tracking pipeline once.
-pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<LoadedTracking, PipelineError> {
+pub fn load_tracking(file: &PipelineFile) -> Result<LoadedTracking, PipelineError> {
     let cfg: TrackingPipeline = file.parse()?;
     let invalid = |message: String| PipelineError::Invalid { path: file.path.clone(), message };
     let SharedInputs { mut ephemeris, constants, earth, stations, mut inputs } = load_shared(file, &cfg.ephemeris, &cfg.earth, &cfg.stations)?;
@@ -142,7 +142,7 @@ pub fn load_tracking(file: &PipelineFile, output: Option<&Path>) -> Result<Loade
     Ok(LoadedTracking {
         ctx,
         input_path: file.resolve(&cfg.input.path),
-        output_path: output.map(Path::to_path_buf).unwrap_or_else(|| file.resolve(&cfg.output.path)),
+        output_path: file.resolve(&cfg.output.path),
         inputs,
         constants,
     })
@@ -227,17 +227,12 @@ pub fn compute_tracking(lt: &mut LoadedTracking, input: &TrackingInput, check_va
 /// Runs a tracking pipeline (one input file, or every partition of a
 /// folder or glob, skipping partitions whose outputs are up to date).
 pub fn run_tracking(file: &PipelineFile, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
-    run_tracking_loaded(file, load_tracking(file, None)?, opts)
+    run_tracking_loaded(file, load_tracking(file)?, opts)
 }
 
 /// [`run_tracking`] with the shared inputs already loaded (by the preflight).
 pub fn run_tracking_loaded(file: &PipelineFile, mut lt: LoadedTracking, opts: &RunOptions) -> Result<RunSummary, PipelineError> {
-    if let Some(o) = &opts.output {
-        lt.output_path = o.clone();
-    }
-    if let Some(i) = &opts.input {
-        lt.input_path = i.clone();
-    }
+    opts.override_paths(&mut lt.input_path, &mut lt.output_path);
     lt.ctx.chunk_rows = opts.chunk_rows;
     lt.ctx.progress = opts.progress.clone();
     let mut base = super::pulsar::shared_provenance(file, &lt.inputs, &lt.constants, &lt.ctx.shapiro, lt.ctx.ppn_gamma)?;
@@ -384,7 +379,7 @@ pub fn synthesize_tracking(file: &PipelineFile, plan: &Path, out: &Path, noise: 
     let n = kind.len();
     let ids: Vec<Option<String>> = (0..n).map(|i| Some(format!("{}-{i:05}", kind[i].as_deref().unwrap_or("")))).collect();
     let input = TrackingInput { obs_id: ids.clone(), kind, rx_station: rx, tx_station: tx, day, frac, count_s: count, uplink_hz: up, value: vec![None; n], sigma: sig };
-    let mut lt = load_tracking(file, None)?;
+    let mut lt = load_tracking(file)?;
     let res = compute_tracking(&mut lt, &input, false);
     let mut values = Vec::with_capacity(n);
     for (i, r) in res.iter().enumerate() {
