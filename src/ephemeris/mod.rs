@@ -159,36 +159,33 @@ impl Ephemeris {
     /// Unknown body, no data, epoch outside coverage (naming the epoch in TDB
     /// and UTC and the loaded coverage), unsupported segment type.
     pub fn state_ssb(&self, target: i32, t: &TdbSeconds) -> Result<StateKm, EphemerisError> {
-        let mut total = StateKm::default();
-        let mut body = target;
-        for _ in 0..16 {
-            if body == 0 {
-                return Ok(total);
-            }
-            let (s, center) = self.state_wrt_center(body, t)?;
-            total = total + s;
-            body = center;
-        }
-        Err(EphemerisError::BrokenChain { body: body_name(target), id: target })
+        self.along_chain(target, t, StateKm::default(), |seg| seg.evaluate(t), |a, b| a + b)
     }
 
     /// Barycentric position (km) of a body: bit-identical to
     /// `state_ssb(..).position_km`, at about half the cost (no velocities).
     ///
+    /// # Accuracy
+    /// As [`Self::state_ssb`].
+    ///
     /// # Errors
     /// As [`Self::state_ssb`].
     pub fn position_ssb_km(&self, target: i32, t: &TdbSeconds) -> Result<[f64; 3], EphemerisError> {
-        let mut total = [0.0f64; 3];
+        self.along_chain(target, t, [0.0f64; 3], |seg| seg.position(t), |a, b| std::array::from_fn(|k| a[k] + b[k]))
+    }
+
+    /// Sums `eval` over the chain of segments from `target` to the solar
+    /// system barycentre (NAIF 0), in chain order.
+    fn along_chain<T>(&self, target: i32, t: &TdbSeconds, zero: T, eval: impl Fn(&Segment) -> Option<T>, add: impl Fn(T, T) -> T) -> Result<T, EphemerisError> {
+        let mut total = zero;
         let mut body = target;
         for _ in 0..16 {
             if body == 0 {
                 return Ok(total);
             }
             let (seg, path) = self.segment_for(body, t)?;
-            let p = seg.position(t).ok_or_else(|| EphemerisError::UnsupportedType { body: body_name(body), id: body, spk_type: seg.spk_type, path: path.to_path_buf() })?;
-            for k in 0..3 {
-                total[k] += p[k];
-            }
+            let v = eval(seg).ok_or_else(|| EphemerisError::UnsupportedType { body: body_name(body), id: body, spk_type: seg.spk_type, path: path.to_path_buf() })?;
+            total = add(total, v);
             body = seg.center;
         }
         Err(EphemerisError::BrokenChain { body: body_name(target), id: target })
