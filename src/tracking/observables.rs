@@ -28,7 +28,7 @@ use nalgebra::Vector3;
 use crate::delays::ShapiroBody;
 use crate::earth::{EarthModel, Station, StationCatalog};
 use crate::ephemeris::{Ephemeris, TdbSeconds};
-use crate::light_time::{Leg, ShapiroSet, solve_backward_from};
+use crate::light_time::{Anchor, Leg, ShapiroSet, solve_backward_anchored};
 use crate::time::femto::{FS_PER_S, ratio_to_f64, seconds_to_fs};
 use crate::time::relativistic::L_B;
 use crate::time::{Epoch, TimeScale};
@@ -195,13 +195,8 @@ impl TrackingContext {
         let (x0, _) = self.spacecraft(&t3)?;
         let tau1_s = (x_rx - x0).norm() / crate::delays::C_M_S;
         let t1 = t3.plus_fs(-s_to_fs(tau1_s)?).map_err(|e| e.to_string())?;
-        let (x1, v1) = self.spacecraft(&t1)?;
-        let uniform = solve_backward_from(&t3, &x_rx, &sh_down, tau1_s, |t| {
-            let dt_s = (t.label_fs() - t1.label_fs()) as f64 * 1e-15;
-            Ok((x1 + v1 * dt_s, v1))
-        })
-        .map_err(|e| format!("down leg: {e}"))?;
-        let down = solve_backward_from(&t3, &x_rx, &sh_down, uniform.light_time_s, |t| self.spacecraft(t)).map_err(|e| format!("down leg: {e}"))?;
+        let (x_m, v_m_s) = self.spacecraft(&t1)?;
+        let down = solve_backward_anchored(&t3, &x_rx, &sh_down, tau1_s, &Anchor { t: t1, x_m, v_m_s }, |t| self.spacecraft(t)).map_err(|e| format!("down leg: {e}"))?;
         let clock_rx_s = ratio_to_f64(t3.label_fs() - st_rx.tt.label_fs(), FS_PER_S);
         let los = down.x_tx_m - x_rx;
         let up_vec = st_rx.up_gcrs;
@@ -234,13 +229,9 @@ impl TrackingContext {
         // its state is exact at its own TDB (s0.tdb, within 2.1 µs of t_guess).
         let utc_guess = self.earth.time.convert(t_guess, TimeScale::Utc, 0.0).map_err(|e| e.to_string())?;
         let s0 = self.earth.station_state(&self.ephemeris, tx, &utc_guess).map_err(|e| format!("geometry unavailable: {e}"))?;
-        let uniform = solve_backward_from(&t2, &x_sc, &sh_up, down.light_time_s, |t| {
-            let dt_s = (t.label_fs() - s0.tdb.label_fs()) as f64 * 1e-15;
-            Ok((s0.bcrs_position_m + s0.bcrs_velocity_m_s * dt_s, s0.bcrs_velocity_m_s))
-        })
-        .map_err(|e| format!("up leg: {e}"))?;
+        let anchor = Anchor { t: s0.tdb, x_m: s0.bcrs_position_m, v_m_s: s0.bcrs_velocity_m_s };
         let mut last = None;
-        let up = solve_backward_from(&t2, &x_sc, &sh_up, uniform.light_time_s, |t| {
+        let up = solve_backward_anchored(&t2, &x_sc, &sh_up, down.light_time_s, &anchor, |t| {
             let s = station(t)?;
             let out = (s.bcrs_position_m, s.bcrs_velocity_m_s);
             last = Some(s);
