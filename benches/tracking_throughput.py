@@ -25,13 +25,16 @@ import pyarrow.parquet as pq
 import spiceypy as sp
 
 ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT / "tests/scale"))
+from common import plain_strings  # noqa: E402
+
 LAPSE = os.environ.get("LAPSE_BIN", str(Path(os.environ.get("CARGO_TARGET_DIR", ROOT / "target")) / "release/lapse"))
 
 
 def main():
     rows = int(sys.argv[1]) if len(sys.argv) > 1 else 100_000
     demo = pq.read_table(ROOT / "data/demo/tracking_obs.parquet")
-    demo = demo.cast(pa.schema([pa.field(f.name, pa.large_string() if pa.types.is_string_view(f.type) else f.type) for f in demo.schema]))
+    demo = demo.cast(plain_strings(demo.schema))
     d2 = demo.filter(pc.equal(demo["kind"], "doppler_2way"))
     copies = -(-rows // d2.num_rows)
     ids = d2["obs_id"]

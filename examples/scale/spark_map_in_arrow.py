@@ -22,13 +22,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "tests/scale"))
-from common import ROOT, canonical, digest, partitioned_cli_run, read_outputs  # noqa: E402
-
-
-def plain_strings(schema):
-    """Every string type (view, 32- or 64-bit offsets) as large_string."""
-    text = (pa.types.is_string_view, pa.types.is_string, pa.types.is_large_string)
-    return pa.schema([pa.field(f.name, pa.large_string() if any(t(f.type) for t in text) else f.type) for f in schema])
+from common import ROOT, canonical, digest, partitioned_cli_run, plain_strings, read_outputs  # noqa: E402
 
 
 def main():

@@ -99,7 +99,9 @@ fn import_batch(obj: &Bound<'_, PyAny>) -> PyResult<DataFrame> {
     if s.validity().is_some_and(|v| v.unset_bits() > 0) {
         return Err(PyTypeError::new_err("a record batch cannot have null rows at the top level"));
     }
-    let s = StructArray::new(s.dtype().clone(), s.len(), s.values().to_vec(), None);
+    // Rebuilt without the (all-valid) top-level mask; a malformed import is
+    // an error, not a panic.
+    let s = StructArray::try_new(s.dtype().clone(), s.len(), s.values().to_vec(), None).map_err(lapse_err)?;
     DataFrame::try_from(s).map_err(lapse_err)
 }
 

@@ -98,13 +98,13 @@ impl CipGrid {
         }
         let w = crate::interp::uniform_lagrange_weights::<CIP_GRID_POINTS>(u - i as f64);
         let window = &self.nodes[i + 1 - CIP_PAD..=i + CIP_PAD];
-        let (mut x, mut y, mut s) = (0.0, 0.0, 0.0);
+        let (mut x_rad, mut y_rad, mut s_rad) = (0.0, 0.0, 0.0);
         for (wk, n) in w.iter().zip(window) {
-            x += wk * n.x_rad;
-            y += wk * n.y_rad;
-            s += wk * n.s_rad;
+            x_rad += wk * n.x_rad;
+            y_rad += wk * n.y_rad;
+            s_rad += wk * n.s_rad;
         }
-        Some(CipXys { x_rad: x, y_rad: y, s_rad: s })
+        Some(CipXys { x_rad, y_rad, s_rad })
     }
 
     /// MJD (TT) span the grid answers.

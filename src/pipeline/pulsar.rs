@@ -466,11 +466,11 @@ fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_pa
         col_f("parallax_s", next_col()),
         col_f("shapiro_s", next_col()),
     ];
-    let dispersion = next_col();
+    let dispersion_s = next_col();
     for b in &lp.ctx.shapiro {
         computed.push(col_f(&format!("shapiro_{}_s", b.name), next_col()));
     }
-    computed.push(col_f("dispersion_s", dispersion));
+    computed.push(col_f("dispersion_s", dispersion_s));
     computed.push(col_f("residual_s", residual.clone()));
     computed.push(Column::new("pulse_number".into(), pulse));
     computed.push(Column::new("clock_extrapolated".into(), clock_x));

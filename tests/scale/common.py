@@ -29,6 +29,14 @@ def pipeline_input(pipeline):
     return (p.parent / tomllib.loads(p.read_text())["input"]["path"]).resolve()
 
 
+def plain_strings(schema):
+    """The schema with every string type (view, 32- or 64-bit offsets) as
+    large_string: pyarrow cannot sort or take string views yet, and Spark's
+    Arrow does not take them (same text)."""
+    text = (pa.types.is_string_view, pa.types.is_string, pa.types.is_large_string)
+    return pa.schema([pa.field(f.name, pa.large_string() if any(t(f.type) for t in text) else f.type) for f in schema])
+
+
 def canonical(tables, key="obs_id", sort=True):
     """Result tables → one byte string: concatenated, sorted by `key`,
     schema metadata (provenance) dropped, one chunk, Arrow IPC stream of the
@@ -38,16 +46,13 @@ def canonical(tables, key="obs_id", sort=True):
     t = pa.concat_tables([pa.table(x) if not isinstance(x, pa.Table) else x for x in tables])
     t = t.replace_schema_metadata(None)
     schema = t.schema
-    # pyarrow cannot sort or take string views yet: plain strings (same text;
-    # the types are compared through `schema`).
-    t = t.cast(pa.schema([pa.field(f.name, pa.large_string() if pa.types.is_string_view(f.type) else f.type) for f in schema]))
+    # Plain strings for sorting (same text; the types are compared through `schema`).
+    t = t.cast(plain_strings(schema))
     if sort and t.num_rows:
         t = t.sort_by(key)
     t = t.combine_chunks()
     cols, names = [], []
     for name, c in zip(t.column_names, t.columns):
-        if pa.types.is_string(c.type):
-            c = c.cast(pa.large_string())
         zero = "" if pa.types.is_large_string(c.type) else False if pa.types.is_boolean(c.type) else 0
         cols += [pc.is_null(c), pc.fill_null(c, pa.scalar(zero).cast(c.type))]
         names += [f"{name}.null", name]
@@ -81,8 +86,7 @@ def split(table, parts, folder, shuffle_seed=None):
         import numpy as np
 
         idx = np.random.default_rng(shuffle_seed).permutation(table.num_rows)
-        # pyarrow cannot `take` string views yet: plain strings (same text).
-        table = table.cast(pa.schema([pa.field(f.name, pa.large_string() if pa.types.is_string_view(f.type) else f.type) for f in table.schema]))
+        table = table.cast(plain_strings(table.schema))  # `take` needs plain strings
         table = table.take(pa.array(idx))
     n = table.num_rows
     paths = []
