@@ -101,7 +101,13 @@ where
 
 /// [`solve_backward`] starting the fixed-point iteration from a light time
 /// `tau0_s` (s) already close to the solution (fewer transmitter states).
-/// The converged leg satisfies the same criterion whatever the start.
+///
+/// # Accuracy
+/// As [`solve_backward`]: the converged leg satisfies the same
+/// [`LIGHT_TIME_TOL_S`] criterion whatever the start.
+///
+/// # References
+/// Moyer (2000), JPL DESCANSO Monograph 2, sec. 8.3.
 pub fn solve_backward_from<F>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tau0_s: f64, mut tx_state: F) -> Result<Leg, String>
 where
     F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String>,
