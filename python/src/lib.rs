@@ -162,10 +162,10 @@ impl ArrowBatch {
 /// records in its Parquet files (strings as string views), so that a reader
 /// of the CLI's files and a caller of the binding see the same schema.
 fn export_frame(mut df: DataFrame) -> ArrowBatch {
-    df.rechunk_mut();
+    df.rechunk_mut(); // one chunk per column: chunk 0 is the whole column
     let compat = CompatLevel::newest();
     let fields: Vec<ArrowField> = df.columns().iter().map(|c| c.field().to_arrow(compat)).collect();
-    let arrays: Vec<Box<dyn Array>> = df.columns().iter().map(|c| c.as_materialized_series().rechunk().to_arrow(0, compat)).collect();
+    let arrays: Vec<Box<dyn Array>> = df.columns().iter().map(|c| c.as_materialized_series().to_arrow(0, compat)).collect();
     let dtype = ArrowDataType::Struct(fields);
     let s = StructArray::new(dtype.clone(), df.height(), arrays, None);
     let field = ArrowField::new("".into(), dtype, false);
