@@ -9,12 +9,6 @@ use std::path::{Path, PathBuf};
 
 use lapse::pipeline::batch::BatchEngine;
 
-fn pipelines() -> Vec<PathBuf> {
-    let mut v: Vec<PathBuf> = std::fs::read_dir(root().join("pipelines")).unwrap().map(|e| e.unwrap().path()).filter(|p| p.extension().is_some_and(|x| x == "toml")).collect();
-    v.sort();
-    v
-}
-
 fn input_of(pipeline: &Path) -> PathBuf {
     let text = std::fs::read_to_string(pipeline).unwrap();
     let t: toml::Table = toml::from_str(&text).unwrap();

@@ -7,18 +7,12 @@
 mod common;
 use common::*;
 
-use std::path::{Path, PathBuf};
 use std::process::Command;
 
 #[test]
 fn every_pipeline_matches_its_golden_output() {
-    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
-    let mut pipelines: Vec<PathBuf> = std::fs::read_dir(root.join("pipelines"))
-        .unwrap()
-        .map(|e| e.unwrap().path())
-        .filter(|p| p.extension().is_some_and(|x| x == "toml"))
-        .collect();
-    pipelines.sort();
+    let root = root();
+    let pipelines = pipelines();
     assert!(!pipelines.is_empty());
     let bless = std::env::var_os("LAPSE_BLESS").is_some();
     let tmp = std::env::temp_dir().join(format!("lapse-golden-{}", std::process::id()));

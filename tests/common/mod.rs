@@ -17,6 +17,13 @@ pub fn data(p: &str) -> String {
     root().join(p).to_string_lossy().into_owned()
 }
 
+/// Every `pipelines/*.toml`, sorted.
+pub fn pipelines() -> Vec<PathBuf> {
+    let mut v: Vec<PathBuf> = std::fs::read_dir(root().join("pipelines")).unwrap().map(|e| e.unwrap().path()).filter(|p| p.extension().is_some_and(|x| x == "toml")).collect();
+    v.sort();
+    v
+}
+
 /// Runs the built binary.
 pub fn lapse(args: &[&str]) -> Output {
     Command::new(env!("CARGO_BIN_EXE_lapse")).args(args).output().expect("run lapse")
