@@ -132,6 +132,34 @@ fn partitioned_run_equals_single_file_run_and_skips_up_to_date_partitions() {
 }
 
 #[test]
+fn a_run_leaves_other_writers_partial_files_alone() {
+    // One cluster task per partition writes into a shared output folder:
+    // a task starting must not delete the files another task is still
+    // writing (this happened on the Slurm array: a task removed every
+    // `*.partial` in the folder and its neighbour's rename failed). It
+    // removes only the stale partial files of its own output.
+    let d = tmpdir("partials");
+    make_partitions(&d, 2, 1);
+    let out = d.join("out");
+    std::fs::create_dir_all(&out).unwrap();
+    let neighbour = lapse::pipeline::partial_paths(&out.join("night-01.parquet"));
+    let own = lapse::pipeline::partial_paths(&out.join("night-00.parquet"));
+    for f in neighbour.iter().chain(own.iter()) {
+        std::fs::write(f, b"in progress").unwrap();
+    }
+    let p = pulsar_pipeline(&d, &d.join("in/night-00.parquet").display().to_string(), &out.join("night-00.parquet").display().to_string());
+    let o = lapse(&["run", p.to_str().unwrap(), "-q", "--no-plots"]);
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    for f in &neighbour {
+        assert_eq!(std::fs::read(f).unwrap(), b"in progress", "{} was touched", f.display());
+    }
+    for f in &own {
+        assert!(!f.exists(), "stale {} left behind", f.display());
+    }
+    assert!(out.join("night-00.parquet").exists() && out.join("night-00.rejects.parquet").exists());
+}
+
+#[test]
 fn killed_run_resumes_to_the_same_outputs() {
     let d = tmpdir("kill");
     make_partitions(&d, 8, 6);

@@ -405,15 +405,28 @@ pub fn up_to_date(output: &Path, expected: &Provenance) -> bool {
     expected.entries.iter().filter(|(k, _)| k == "lapse.pipeline.sha256" || k.ends_with(".sha256")).all(|(k, v)| md.get(k) == Some(v))
 }
 
-/// Removes temporary files a killed run left in a folder.
-pub fn remove_stale_partials(dir: &Path) {
-    if let Ok(entries) = std::fs::read_dir(dir) {
-        for e in entries.flatten() {
-            let p = e.path();
-            if p.to_string_lossy().ends_with(".partial") {
-                tracing::warn!(path = %p.display(), "removing a partial file left by an interrupted run");
-                let _ = std::fs::remove_file(&p);
-            }
+/// The temporary files a run writes on its way to `output` (and its
+/// rejects table): the data is written to these and renamed into place only
+/// when complete.
+pub fn partial_paths(output: &Path) -> [PathBuf; 4] {
+    [
+        output.with_extension("parquet.partial"),
+        rejects_path(output).with_extension("parquet.partial"),
+        output.with_extension("stream-out.partial"),
+        output.with_extension("stream-rejects.partial"),
+    ]
+}
+
+/// Removes the temporary files a killed run left on its way to `output`.
+///
+/// Only this output's own partial files: other processes may be writing
+/// other outputs in the same folder at the same time (one cluster task per
+/// partition writes beside the others), and their partial files are theirs.
+pub fn remove_stale_partials(output: &Path) {
+    for p in partial_paths(output) {
+        if p.exists() {
+            tracing::warn!(path = %p.display(), "removing a partial file left by an interrupted run");
+            let _ = std::fs::remove_file(&p);
         }
     }
 }
@@ -435,11 +448,11 @@ where
     let out_dir = if partitioned { output.to_path_buf() } else { output.parent().map(Path::to_path_buf).unwrap_or_default() };
     if !out_dir.as_os_str().is_empty() {
         std::fs::create_dir_all(&out_dir).map_err(|source| PipelineError::Read { path: out_dir.clone(), source })?;
-        remove_stale_partials(&out_dir);
     }
     let mut total = RunSummary { output: output.into(), rejects: rejects_path(output), ..Default::default() };
     for inp in &inputs {
         let out = if partitioned { partition_output(output, inp) } else { output.to_path_buf() };
+        remove_stale_partials(&out);
         let mut prov = base.clone();
         let obs_sha = sha256_file(inp)?;
         prov.set("input.observations.0.path", &inp.display().to_string());

@@ -632,8 +632,7 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
     drop(days_df);
     lp.ctx.earth.cover_utc_days(all_days.iter().flatten().copied());
     // Pass 1: compute slices, raw residuals to temporary files.
-    let tmp_out = output_path.with_extension("stream-out.partial");
-    let tmp_rej = output_path.with_extension("stream-rejects.partial");
+    let [_, _, tmp_out, tmp_rej] = super::partial_paths(output_path);
     let mut w_out: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>> = None;
     let mut w_rej: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>> = None;
     let mut ids = super::IdChecker::new(n_rows);

@@ -103,8 +103,13 @@ for spec in "pipelines/pulsar_demo.toml 4 1" "pipelines/tracking_demo.toml 3 2";
   "$lapse" run "$pipeline" --input "$d/in" --output "$d/cli" --no-plots --quiet
   # The job array: one task per file, threads from the allocation.
   t2=$(date +%s)
-  (cd "$d" && LAPSE_BIN="$lapse" sbatch --parsable --wait --array=0-$((parts - 1)) --cpus-per-task=1 \
-     "$here/cluster/slurm/lapse-array.sbatch" "$pipeline" "$d/files.txt" "$d/slurm" > "$d/job.txt")
+  if ! (cd "$d" && LAPSE_BIN="$lapse" sbatch --parsable --wait --array=0-$((parts - 1)) --cpus-per-task=1 \
+     "$here/cluster/slurm/lapse-array.sbatch" "$pipeline" "$d/files.txt" "$d/slurm" > "$d/job.txt"); then
+    echo "  $name: the array job failed; task logs:" >&2
+    for log in "$d"/lapse-*.log; do echo "--- $log" >&2; cat "$log" >&2; done
+    status=1
+    continue
+  fi
   job="$(cat "$d/job.txt")"
   echo "  $name: array job $job, $parts tasks, done in $(( $(date +%s) - t2 )) s"
   if ! (cd tests/scale && "$py" partitions.py compare "$d/slurm" "$d/cli" | sed "s/^/  $name: /"); then
