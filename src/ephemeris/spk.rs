@@ -452,27 +452,98 @@ impl DiscreteStates {
             x[j] = -t.minus_f64_s(self.epochs_s[i]);
         }
         let x = &x[..w];
+        // The three axes share the abscissae: interpolated together, one
+        // lane per axis (the same operations per lane as one axis alone, so
+        // the results are those of the per-axis routines bit for bit, and
+        // the divisions by the shared node differences vectorise).
         let mut s = StateKm::default();
-        let (mut p, mut v) = ([0.0f64; MAX_WINDOW], [0.0f64; MAX_WINDOW]);
-        for axis in 0..3 {
-            for (j, i) in (f..f + w).enumerate() {
-                p[j] = self.states[i][axis];
-                v[j] = self.states[i][axis + 3];
-            }
-            if self.hermite {
-                let (val, der) = hermite_at_zero(x, &p[..w], &v[..w]);
-                s.position_km[axis] = val;
-                s.velocity_km_s[axis] = der;
-            } else {
-                s.position_km[axis] = lagrange_at_zero(x, &p[..w]);
-                s.velocity_km_s[axis] = lagrange_at_zero(x, &v[..w]);
-            }
+        let (mut p, mut v) = ([[0.0f64; LANES]; MAX_WINDOW], [[0.0f64; LANES]; MAX_WINDOW]);
+        for (j, st) in self.states[f..f + w].iter().enumerate() {
+            p[j] = [st[0], st[1], st[2], 0.0];
+            v[j] = [st[3], st[4], st[5], 0.0];
+        }
+        if self.hermite {
+            let (val, der) = hermite_at_zero_lanes(x, &p[..w], &v[..w]);
+            s.position_km = [val[0], val[1], val[2]];
+            s.velocity_km_s = [der[0], der[1], der[2]];
+        } else {
+            let (pos, vel) = (lagrange_at_zero_lanes(x, &p[..w]), lagrange_at_zero_lanes(x, &v[..w]));
+            s.position_km = [pos[0], pos[1], pos[2]];
+            s.velocity_km_s = [vel[0], vel[1], vel[2]];
         }
         s
     }
 }
 
-/// Lagrange interpolation at 0 through (x_i, y_i) (Neville's scheme).
+/// Lanes of the multi-axis interpolation (three axes and one idle lane, a
+/// width the compiler maps onto vector registers).
+const LANES: usize = 4;
+
+/// [`lagrange_at_zero`] for several ordinates sharing the abscissae, one per
+/// lane: each lane is computed with exactly the scalar routine's operations.
+fn lagrange_at_zero_lanes(x: &[f64], y: &[[f64; LANES]]) -> [f64; LANES] {
+    let n = x.len();
+    let mut p = [[0.0f64; LANES]; MAX_WINDOW];
+    p[..n].copy_from_slice(y);
+    for m in 1..n {
+        for i in 0..n - m {
+            let (a, b, d) = (x[i + m], x[i], x[i + m] - x[i]);
+            let next = p[i + 1];
+            for (l, q) in p[i].iter_mut().enumerate() {
+                *q = (a * *q - b * next[l]) / d;
+            }
+        }
+    }
+    p[0]
+}
+
+/// [`hermite_at_zero`] for several ordinates sharing the abscissae, one per
+/// lane: value and derivative at 0, each lane computed with exactly the
+/// scalar routine's operations.
+fn hermite_at_zero_lanes(x: &[f64], y: &[[f64; LANES]], dy: &[[f64; LANES]]) -> ([f64; LANES], [f64; LANES]) {
+    let n = 2 * x.len();
+    let mut z = [0.0f64; 2 * MAX_WINDOW];
+    for k in 0..n {
+        z[k] = x[k / 2];
+    }
+    let mut coef = [[0.0f64; LANES]; 2 * MAX_WINDOW];
+    coef[0] = y[0];
+    let mut col = [[0.0f64; LANES]; 2 * MAX_WINDOW];
+    for k in 0..n - 1 {
+        if k % 2 == 0 {
+            col[k] = dy[k / 2];
+        } else {
+            let (hi, lo, d) = (y[(k + 1) / 2], y[k / 2], z[k + 1] - z[k]);
+            for l in 0..LANES {
+                col[k][l] = (hi[l] - lo[l]) / d;
+            }
+        }
+    }
+    coef[1] = col[0];
+    for m in 2..n {
+        for k in 0..n - m {
+            let d = z[k + m] - z[k];
+            let next = col[k + 1];
+            for (l, c) in col[k].iter_mut().enumerate() {
+                *c = (next[l] - *c) / d;
+            }
+        }
+        coef[m] = col[0];
+    }
+    let (mut p, mut dp) = (coef[n - 1], [0.0f64; LANES]);
+    for k in (0..n - 1).rev() {
+        let mz = 0.0 - z[k];
+        for l in 0..LANES {
+            dp[l] = dp[l] * mz + p[l];
+            p[l] = p[l] * mz + coef[k][l];
+        }
+    }
+    (p, dp)
+}
+
+/// Lagrange interpolation at 0 through (x_i, y_i) (Neville's scheme); the
+/// one-axis reference of [`lagrange_at_zero_lanes`].
+#[cfg(test)]
 fn lagrange_at_zero(x: &[f64], y: &[f64]) -> f64 {
     let n = x.len();
     let mut p = [0.0f64; MAX_WINDOW];
@@ -486,7 +557,9 @@ fn lagrange_at_zero(x: &[f64], y: &[f64]) -> f64 {
 }
 
 /// Hermite interpolation at 0 through values y_i and derivatives dy_i at
-/// x_i: value and derivative (divided differences on doubled nodes).
+/// x_i: value and derivative (divided differences on doubled nodes); the
+/// one-axis reference of [`hermite_at_zero_lanes`].
+#[cfg(test)]
 fn hermite_at_zero(x: &[f64], y: &[f64], dy: &[f64]) -> (f64, f64) {
     // Stack buffers: windows hold at most MAX_WINDOW states (checked when the
     // segment is read), so 2·MAX_WINDOW doubled nodes.
@@ -536,6 +609,32 @@ mod tests {
         assert!((v - f(t0)).abs() < 1e-13 && (d - df(t0)).abs() < 1e-13, "{v} {d}");
         let x4 = [0.0 - t0, 1.0 - t0, 2.5 - t0, 4.0 - t0];
         assert!((lagrange_at_zero(&x4, &[0.0, 1.0, 2.5, 4.0].map(f)) - f(t0)).abs() < 1e-13);
+    }
+
+    #[test]
+    fn lane_interpolation_equals_the_one_axis_routines_bit_for_bit() {
+        // Pseudo-random windows of 2..=16 nodes: each lane must be exactly
+        // the scalar routine's result (same operations, same order).
+        let mut seed = 0x2545_f491_4f6c_dd1du64;
+        let mut rnd = || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            (seed >> 11) as f64 / (1u64 << 53) as f64 - 0.5
+        };
+        for w in 2..=16 {
+            let x: Vec<f64> = (0..w).map(|k| (k as f64 - w as f64 / 2.0) * 60.0 + rnd()).collect();
+            let y: Vec<[f64; LANES]> = (0..w).map(|_| [rnd() * 1e8, rnd() * 1e5, rnd(), 0.0]).collect();
+            let dy: Vec<[f64; LANES]> = (0..w).map(|_| [rnd() * 30.0, rnd(), rnd() * 1e-3, 0.0]).collect();
+            let (hv, hd) = hermite_at_zero_lanes(&x, &y, &dy);
+            let lv = lagrange_at_zero_lanes(&x, &y);
+            for l in 0..3 {
+                let (yl, dyl): (Vec<f64>, Vec<f64>) = (y.iter().map(|r| r[l]).collect(), dy.iter().map(|r| r[l]).collect());
+                let (v, d) = hermite_at_zero(&x, &yl, &dyl);
+                assert_eq!((hv[l].to_bits(), hd[l].to_bits()), (v.to_bits(), d.to_bits()), "hermite w={w} lane {l}");
+                assert_eq!(lv[l].to_bits(), lagrange_at_zero(&x, &yl).to_bits(), "lagrange w={w} lane {l}");
+            }
+        }
     }
 
     #[test]

@@ -229,10 +229,40 @@ pub fn fs_to_seconds(fs: i128) -> f64 {
     ratio_to_f64(fs, FS_PER_S)
 }
 
-/// Floor division and non-negative remainder.
+/// Floor division and non-negative remainder (`b > 0`), exact.
+///
+/// The quotient is estimated in f64 and corrected with exact integer
+/// arithmetic until the remainder lies in [0, b) — the same result as
+/// `i128::div_euclid`, without the software 128-bit division (the epochs of
+/// this crate divide femtoseconds by a day, 8.64e19 fs, which does not fit
+/// in 64 bits). Quotients beyond 2^50 fall back to `div_euclid`.
+#[inline]
 pub fn div_floor(a: i128, b: i128) -> (i128, i128) {
+    debug_assert!(b > 0);
+    let q_est = i128_to_f64(a) / i128_to_f64(b);
+    if q_est.abs() < (1u64 << 50) as f64 {
+        // Truncated, the estimate is within 2 of the floor here; the loops
+        // settle it exactly (hardware conversion through i64).
+        let mut q = q_est as i64 as i128;
+        let mut r = a - q * b;
+        while r < 0 {
+            q -= 1;
+            r += b;
+        }
+        while r >= b {
+            q += 1;
+            r -= b;
+        }
+        return (q, r);
+    }
     let q = a.div_euclid(b);
     (q, a - q * b)
+}
+
+/// i128 → f64 within a few ulp (two hardware conversions), for estimates.
+#[inline]
+fn i128_to_f64(x: i128) -> f64 {
+    ((x >> 64) as i64) as f64 * 18_446_744_073_709_551_616.0 + (x as u64) as f64
 }
 
 /// Parses a decimal fraction given as its digits after the point (at most
@@ -285,6 +315,32 @@ pub fn fraction_digits(num: i128, den: i128, places: usize) -> (String, bool) {
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn div_floor_equals_div_euclid() {
+        // Exact floor division on epochs of the crate's range and beyond,
+        // including exact multiples and their neighbours.
+        use super::*;
+        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = || {
+            seed ^= seed << 13;
+            seed ^= seed >> 7;
+            seed ^= seed << 17;
+            seed
+        };
+        for b in [FS_PER_S, FS_PER_DAY, FS_PER_DAY / 2, 86_401 * FS_PER_S, 7, 1] {
+            for _ in 0..20_000 {
+                let a = ((next() as i128) << 32 | (next() >> 32) as i128) % (1i128 << 90) - (1i128 << 89);
+                let q = a.div_euclid(b);
+                for a in [a, q * b, q * b - 1, q * b + 1] {
+                    assert_eq!(div_floor(a, b), (a.div_euclid(b), a.rem_euclid(b)), "{a} / {b}");
+                }
+            }
+        }
+        for a in [i128::MAX / 2, i128::MIN / 2, 0, -1, 1] {
+            assert_eq!(div_floor(a, 3), (a.div_euclid(3), a.rem_euclid(3)));
+        }
+    }
+
 
     /// The corrected-significand method is correctly rounded (no neighbour
     /// is nearer, compared exactly) and, for denominators exact in f64 (all

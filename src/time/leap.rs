@@ -259,7 +259,7 @@ impl LeapSecondTable {
             .steps
             .partition_point(|s| (s.mjd as i128 * 86_400 + s.tai_minus_utc_s as i128) * FS_PER_S <= tai_fs);
         let off = if idx == 0 { self.steps[0].tai_minus_utc_s } else { self.steps[idx - 1].tai_minus_utc_s };
-        let guess = (tai_fs - off as i128 * FS_PER_S).div_euclid(day_fs);
+        let guess = crate::time::femto::div_floor(tai_fs - off as i128 * FS_PER_S, day_fs).0;
         let guess = i64::try_from(guess).map_err(|_| TimeError::OutOfRange { what: format!("TAI {tai_fs} fs") })?;
         let mut day = guess;
         for _ in 0..3 {

@@ -4,7 +4,7 @@
 //! in the argument (`tt_fs`, `tdb_fs`, …), so that results are exact apart
 //! from one rounding to the femtosecond.
 
-use super::femto::{FS_PER_DAY, FS_PER_S, ratio_to_f64, seconds_to_fs};
+use super::femto::{FS_PER_DAY, FS_PER_S, div_floor, ratio_to_f64, seconds_to_fs};
 
 /// L_G, the defining rate of TCG − TT (IAU 2000 Resolution B1.9).
 pub const L_G: f64 = 6.969290134e-10;
@@ -125,8 +125,8 @@ impl TdbGrid {
     /// since MJD 0 TT), padded by `TDB_GRID_POINTS / 2` nodes each side.
     pub fn new(first_tt_fs: i128, last_tt_fs: i128, step_day: f64) -> Self {
         let step_fs = (step_day * FS_PER_DAY as f64).round() as i128;
-        let first_node = first_tt_fs.div_euclid(step_fs) as i64 - TDB_PAD;
-        let last_node = last_tt_fs.div_euclid(step_fs) as i64 + TDB_PAD + 1;
+        let first_node = div_floor(first_tt_fs, step_fs).0 as i64 - TDB_PAD;
+        let last_node = div_floor(last_tt_fs, step_fs).0 as i64 + TDB_PAD + 1;
         use rayon::prelude::*;
         let values_s = (first_node..=last_node).into_par_iter().map(|k| tdb_minus_tt_geocentric_s(k as i128 * step_fs)).collect();
         Self { first_node, step_fs, values_s }
@@ -134,12 +134,12 @@ impl TdbGrid {
 
     /// Interpolated geocentric TDB − TT (s) at a TT epoch, `None` outside.
     pub fn at(&self, tt_fs: i128) -> Option<f64> {
-        let node = tt_fs.div_euclid(self.step_fs);
+        let (node, rem_fs) = div_floor(tt_fs, self.step_fs);
         let k = node as i64 - self.first_node;
         if k < TDB_PAD - 1 || (k + TDB_PAD) as usize >= self.values_s.len() {
             return None;
         }
-        let u = ratio_to_f64(tt_fs - node * self.step_fs, self.step_fs); // in [0, 1)
+        let u = ratio_to_f64(rem_fs, self.step_fs); // in [0, 1)
         let v = &self.values_s[(k + 1 - TDB_PAD) as usize..=(k + TDB_PAD) as usize];
         Some(crate::interp::uniform_lagrange::<TDB_GRID_POINTS>(v, u))
     }
