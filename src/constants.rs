@@ -85,7 +85,7 @@ impl Constants {
 
     /// Reads a constants file.
     pub fn from_file(path: &Path) -> Result<Self, ConstantsError> {
-        let text = std::fs::read_to_string(path).map_err(|source| ConstantsError::Io { path: path.into(), source })?;
+        let text = crate::io::digest::read_to_string_remembering(path).map_err(|source| ConstantsError::Io { path: path.into(), source })?;
         Self::parse(&text, path)
     }
 

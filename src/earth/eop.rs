@@ -97,7 +97,7 @@ fn field<'a>(line: &'a str, a: usize, b: usize) -> &'a str {
 impl EopTable {
     /// Reads an EOP file, recognising its layout from its content.
     pub fn from_file(path: &Path) -> Result<Self, EopError> {
-        let text = std::fs::read_to_string(path).map_err(|source| EopError::Io { path: path.into(), source })?;
+        let text = crate::io::digest::read_to_string_remembering(path).map_err(|source| EopError::Io { path: path.into(), source })?;
         Self::parse(&text, path)
     }
 

@@ -119,7 +119,7 @@ pub struct StationCatalog {
 impl StationCatalog {
     /// Reads a catalogue file.
     pub fn from_file(path: &Path) -> Result<Self, StationError> {
-        let text = std::fs::read_to_string(path).map_err(|source| StationError::Io { path: path.into(), source })?;
+        let text = crate::io::digest::read_to_string_remembering(path).map_err(|source| StationError::Io { path: path.into(), source })?;
         Self::parse(&text, path)
     }
 

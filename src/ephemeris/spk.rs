@@ -286,8 +286,9 @@ impl SpkKernel {
     /// [`EphemerisError::Kernel`] naming the file for anything unreadable,
     /// truncated or inconsistent.
     pub fn load(path: &Path) -> Result<Self, EphemerisError> {
-        let bytes = std::fs::read(path).map_err(|e| kernel_err(path, e.to_string()))?;
-        Self::parse(&bytes, path)
+        let (bytes, stamp) = crate::io::digest::read_stamped(path).map_err(|e| kernel_err(path, e.to_string()))?;
+        // The provenance digest is taken while the records are parsed.
+        rayon::join(|| crate::io::digest::remember(path, stamp, &bytes), || Self::parse(&bytes, path)).1
     }
 
     /// Parses SPK bytes; `path` names the file in errors.
@@ -309,8 +310,9 @@ impl SpkKernel {
             return Err(kernel_err(path, "no segments"));
         }
         let data = &daf.bytes;
-        let mut segments = Vec::with_capacity(summaries.len());
-        for (k, s) in summaries.iter().enumerate() {
+        // Segments are independent: their records are copied in parallel.
+        use rayon::prelude::*;
+        let segments = summaries.par_iter().enumerate().map(|(k, s)| -> Result<Segment, EphemerisError> {
             let (a, b) = (s.start_idx as i64, s.end_idx as i64);
             if a < 1 || b < a || (b as usize) * 8 > data.len() {
                 return Err(kernel_err(path, format!("segment {k} (target {}) points outside the file (doubles {a}..{b}, file {} bytes): truncated?", s.target_id, data.len())));
@@ -326,7 +328,7 @@ impl SpkKernel {
                 9 | 13 => SegmentData::Discrete(parse_discrete(&doubles(), s.data_type_i == 13).map_err(seg_err)?),
                 _ => SegmentData::Unsupported,
             };
-            segments.push(Segment {
+            Ok(Segment {
                 target: s.target_id,
                 center: s.center_id,
                 frame: s.frame_id,
@@ -334,8 +336,10 @@ impl SpkKernel {
                 start_s: s.start_epoch_et_s,
                 end_s: s.end_epoch_et_s,
                 data,
-            });
-        }
+            })
+        });
+        // The first bad segment in file order names the error, as serially.
+        let segments = segments.collect::<Vec<_>>().into_iter().collect::<Result<Vec<_>, _>>()?;
         Ok(Self { path: path.to_path_buf(), segments })
     }
 }

@@ -1,5 +1,7 @@
 //! Parquet in and out, with errors that name the file, column and row.
 
+pub mod digest;
+
 use std::fs::File;
 use std::path::{Path, PathBuf};
 

@@ -14,7 +14,6 @@ use std::collections::{BTreeMap, HashMap};
 use std::path::{Path, PathBuf};
 
 use polars::prelude::*;
-use sha2::{Digest, Sha256};
 
 use crate::io::IoError;
 use crate::time::TimeError;
@@ -88,16 +87,11 @@ impl PipelineFile {
     }
 }
 
-/// Lower-case hexadecimal SHA-256 of some bytes.
-pub fn sha256_hex(bytes: &[u8]) -> String {
-    let d = Sha256::digest(bytes);
-    d.iter().map(|b| format!("{b:02x}")).collect()
-}
+pub use crate::io::digest::sha256_hex;
 
-/// SHA-256 of a file's contents.
+/// SHA-256 of a file's contents (remembered from its load when unchanged).
 pub fn sha256_file(path: &Path) -> Result<String, IoError> {
-    let bytes = std::fs::read(path).map_err(|source| IoError::Open { path: path.into(), source })?;
-    Ok(sha256_hex(&bytes))
+    crate::io::digest::file_digest(path).map(|(_, d)| d).map_err(|source| IoError::Open { path: path.into(), source })
 }
 
 /// What a run did, for the summary on stdout and in the output metadata.
@@ -287,10 +281,10 @@ impl Provenance {
         let n = self.roles.entry(role.to_string()).or_default();
         let key = format!("input.{role}.{n}");
         *n += 1;
-        let bytes = std::fs::read(path).map_err(|source| IoError::Open { path: path.into(), source })?;
+        let (len, digest) = crate::io::digest::file_digest(path).map_err(|source| IoError::Open { path: path.into(), source })?;
         self.set(&format!("{key}.path"), &path.display().to_string());
-        self.set(&format!("{key}.bytes"), &bytes.len().to_string());
-        self.set(&format!("{key}.sha256"), &sha256_hex(&bytes));
+        self.set(&format!("{key}.bytes"), &len.to_string());
+        self.set(&format!("{key}.sha256"), &digest);
         if !coverage.is_empty() {
             self.set(&format!("{key}.coverage"), coverage);
         }

@@ -271,7 +271,21 @@ pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg
     }
     // The kernels and the EOP file are independent: read them concurrently.
     let eop_path = file.resolve(&earth_cfg.eop);
-    let (ephemeris, eop) = rayon::join(|| Ephemeris::load(&kernels), || EopTable::from_file(&eop_path));
+    let timed = |what: &'static str, t0: std::time::Instant| tracing::debug!(load_s = t0.elapsed().as_secs_f64(), "{what} loaded");
+    let (ephemeris, eop) = rayon::join(
+        || {
+            let t0 = std::time::Instant::now();
+            let e = Ephemeris::load(&kernels);
+            timed("kernels", t0);
+            e
+        },
+        || {
+            let t0 = std::time::Instant::now();
+            let e = EopTable::from_file(&eop_path);
+            timed("EOP", t0);
+            e
+        },
+    );
     let ephemeris = ephemeris.map_err(|e| invalid(format!("[ephemeris] {e}")))?;
     let eop = eop.map_err(|e| invalid(format!("[earth] {e}")))?;
     for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {

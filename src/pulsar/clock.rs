@@ -47,7 +47,7 @@ pub struct ClockValue {
 impl ClockTable {
     /// Reads a table.
     pub fn from_file(path: &Path) -> Result<Self, ClockError> {
-        let text = std::fs::read_to_string(path).map_err(|source| ClockError::Io { path: path.into(), source })?;
+        let text = crate::io::digest::read_to_string_remembering(path).map_err(|source| ClockError::Io { path: path.into(), source })?;
         Self::parse(&text, path)
     }
 
