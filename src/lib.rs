@@ -15,6 +15,7 @@ pub mod ephemeris;
 pub mod interp;
 pub mod io;
 pub mod light_time;
+pub mod model_cache;
 pub mod pipeline;
 pub mod plots;
 pub mod pulsar;

@@ -223,6 +223,7 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             let result = run(&pipeline, prepared, &opts, cli.quiet);
             done.store(true, std::sync::atomic::Ordering::Relaxed);
             if let Some(w) = watcher {
+                w.thread().unpark();
                 let _ = w.join();
             }
             result
@@ -328,7 +329,8 @@ fn spawn_progress(pipeline: &std::path::Path, input: Option<&std::path::Path>, c
         let mut bar: Option<indicatif::ProgressBar> = None;
         let mut last_log = std::time::Instant::now();
         while !done.load(Ordering::Relaxed) {
-            std::thread::sleep(std::time::Duration::from_millis(100));
+            // Woken early by unpark when the run ends (no 100 ms wait at exit).
+            std::thread::park_timeout(std::time::Duration::from_millis(100));
             let n = counter.load(Ordering::Relaxed) as u64;
             if tty && bar.is_none() && start.elapsed().as_secs_f64() > 1.0 {
                 let b = indicatif::ProgressBar::new(total.max(1));

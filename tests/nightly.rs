@@ -160,6 +160,30 @@ fn a_run_leaves_other_writers_partial_files_alone() {
 }
 
 #[test]
+fn model_cache_cold_warm_or_off_gives_the_golden_bits() {
+    // The X, Y, s and TDB − TT grid nodes come from the model cache when it
+    // has them: cold (computed and written), warm (read back) and disabled,
+    // the demo outputs must be the golden ones bit for bit.
+    let d = tmpdir("model-cache");
+    let cache = d.join("cache");
+    for name in ["pulsar_demo", "tracking_demo"] {
+        let pipeline = root().join(format!("pipelines/{name}.toml"));
+        for (run, dir) in [("cold", cache.to_str().unwrap()), ("warm", cache.to_str().unwrap()), ("off", "off")] {
+            let out = d.join(format!("{name}-{run}.parquet"));
+            let o = Command::new(env!("CARGO_BIN_EXE_lapse"))
+                .args(["run", pipeline.to_str().unwrap(), "--output", out.to_str().unwrap(), "-q", "--no-plots"])
+                .env("LAPSE_CACHE_DIR", dir)
+                .output()
+                .unwrap();
+            assert_eq!(o.status.code(), Some(0), "{name} {run}: {}", String::from_utf8_lossy(&o.stderr));
+            assert_eq!(column_bits(&read(&out)), column_bits(&read(&root().join(format!("tests/golden/{name}.parquet")))), "{name}, cache {run}");
+        }
+    }
+    let blocks = std::fs::read_dir(&cache).unwrap().flatten().filter(|e| e.path().extension().is_some_and(|x| x == "bin")).count();
+    assert!(blocks >= 2 * 60, "the 2019–2025 pulsar span fills ≥ 60 blocks of 32 days per model; {blocks} files");
+}
+
+#[test]
 fn killed_run_resumes_to_the_same_outputs() {
     let d = tmpdir("kill");
     make_partitions(&d, 8, 6);

@@ -62,6 +62,9 @@ pub struct CipGrid {
 
 /// Default grid step, days.
 pub const CIP_GRID_STEP_DAY: f64 = 0.5;
+/// The series behind [`CipXys::direct`], naming its tables in the model
+/// cache (change it with the series or its crate's version).
+pub const CIP_MODEL: &str = "cip-xys06a-sofars-0.6.3";
 /// Interpolation points of [`CipGrid`] (even).
 pub const CIP_GRID_POINTS: usize = 8;
 const CIP_PAD: usize = CIP_GRID_POINTS / 2;
@@ -72,17 +75,19 @@ impl CipGrid {
     /// Nodes sit at whole multiples of the step, so a value does not depend
     /// on the span asked for.
     pub fn new(start_mjd_tt: f64, end_mjd_tt: f64, step_day: f64) -> Self {
-        let s0 = (start_mjd_tt / step_day).floor() * step_day - CIP_PAD as f64 * step_day;
-        let n = (((end_mjd_tt - s0) / step_day).ceil() as usize) + CIP_PAD + 1;
-        // Nodes are independent: computed in parallel (order kept).
-        use rayon::prelude::*;
-        let nodes = (0..n)
-            .into_par_iter()
-            .map(|k| {
-                let mjd = s0 + k as f64 * step_day;
-                CipXys::direct(2_400_000.5, mjd)
-            })
-            .collect();
+        let j0 = (start_mjd_tt / step_day).floor() as i64 - CIP_PAD as i64;
+        let s0 = j0 as f64 * step_day;
+        let n = (((end_mjd_tt - s0) / step_day).ceil() as i64) + CIP_PAD as i64 + 1;
+        // Node j sits at MJD j · step: computed in parallel, or read from the
+        // model cache (the same bits; see `crate::model_cache`).
+        let model = format!("{CIP_MODEL} step {step_day:?} d");
+        let nodes = crate::model_cache::tabulate(&model, j0, j0 + n - 1, |j| {
+            let c = CipXys::direct(2_400_000.5, j as f64 * step_day);
+            [c.x_rad, c.y_rad, c.s_rad]
+        })
+        .into_iter()
+        .map(|[x_rad, y_rad, s_rad]| CipXys { x_rad, y_rad, s_rad })
+        .collect();
         Self { start_mjd_tt: s0, step_day, nodes }
     }
 

@@ -134,25 +134,32 @@ impl Facts {
 /// Rows per slice when preflight reads an input.
 const PREFLIGHT_SLICE_ROWS: usize = 500_000;
 
-/// Reads every input partition in slices, checks schema and ids, and hands
-/// the accumulated facts of each usable file to `each`.
-fn each_partition<I>(
-    p: &mut Preflight,
+/// What the scan of one input file found.
+enum Scanned {
+    /// The file cannot be used: the message says why.
+    Unusable(String),
+    /// The file has no rows.
+    Empty(std::path::PathBuf),
+    /// The file's facts and span.
+    Rows(std::path::PathBuf, Facts, Span),
+}
+
+/// Reads every file of an input (file, folder or glob) in slices: typed
+/// columns, unique ids, and the facts the checks need. Needs nothing loaded,
+/// so it runs while the shared inputs load. `Err`: the input names no files.
+fn scan_partitions<I>(
     input: &Path,
     read: impl Fn(&polars::prelude::DataFrame, &Path) -> Result<I, super::PipelineError>,
     add: impl Fn(&mut Facts, &I),
     ids_of: impl Fn(&I) -> &[Option<String>],
-    mut each: impl FnMut(&mut Preflight, &Path, &Facts, &Span),
-) {
-    let files = match resolve_inputs(input) {
-        Ok((f, _)) => f,
-        Err(e) => return p.add(Level::Unusable, e.to_string()),
-    };
+) -> Result<Vec<Scanned>, String> {
+    let (files, _) = resolve_inputs(input).map_err(|e| e.to_string())?;
+    let mut out = Vec::with_capacity(files.len());
     'files: for f in files {
         let n = match super::parquet_rows(&f) {
             Ok(n) => n,
             Err(e) => {
-                p.add(Level::Unusable, e.to_string());
+                out.push(Scanned::Unusable(e.to_string()));
                 continue;
             }
         };
@@ -164,12 +171,12 @@ fn each_partition<I>(
             let part = match parsed {
                 Ok(i) => i,
                 Err(e) => {
-                    p.add(Level::Unusable, e.to_string());
+                    out.push(Scanned::Unusable(e.to_string()));
                     continue 'files;
                 }
             };
             if let Err(e) = ids.check(ids_of(&part), at, &f) {
-                p.add(Level::Unusable, e.to_string());
+                out.push(Scanned::Unusable(e.to_string()));
                 continue 'files;
             }
             add(&mut facts, &part);
@@ -179,14 +186,30 @@ fn each_partition<I>(
             }
         }
         if let Err(e) = ids.finish(&f) {
-            p.add(Level::Unusable, e.to_string());
+            out.push(Scanned::Unusable(e.to_string()));
             continue;
         }
-        let Some(s) = facts.span() else {
-            p.add(Level::Note, format!("{}: no rows", f.display()));
-            continue;
-        };
-        each(p, &f, &facts, &s);
+        out.push(match facts.span() {
+            Some(s) => Scanned::Rows(f, facts, s),
+            None => Scanned::Empty(f),
+        });
+    }
+    Ok(out)
+}
+
+/// Reports a scan file by file, running `each` (the checks against the
+/// loaded inputs) on every file with rows.
+fn each_partition(p: &mut Preflight, scanned: Result<Vec<Scanned>, String>, mut each: impl FnMut(&mut Preflight, &Path, &Facts, &Span)) {
+    let files = match scanned {
+        Ok(f) => f,
+        Err(e) => return p.add(Level::Unusable, e),
+    };
+    for f in files {
+        match f {
+            Scanned::Unusable(e) => p.add(Level::Unusable, e),
+            Scanned::Empty(f) => p.add(Level::Note, format!("{}: no rows", f.display())),
+            Scanned::Rows(f, facts, s) => each(p, &f, &facts, &s),
+        }
     }
 }
 
@@ -291,7 +314,11 @@ pub fn preflight_prepared(path: &Path, input: Option<&Path>) -> (Preflight, Opti
 }
 
 fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::pulsar::LoadedPulsar> {
-    let lp = match super::pulsar::load_pulsar(file) {
+    // The input is scanned while the shared inputs load.
+    let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::pulsar::PulsarPipeline>().ok().map(|c| file.resolve(c.input_path())));
+    let scan = || input_path.as_deref().map(|i| scan_partitions(i, super::pulsar::read_pulsar_input, |facts, i| facts.add(&i.day, &i.frac, &i.site, None, None), |i| &i.obs_id));
+    let (lp, scanned) = rayon::join(|| super::pulsar::load_pulsar(file), scan);
+    let lp = match lp {
         Ok(lp) => lp,
         Err(e) => {
             p.add(Level::Unusable, e.to_string());
@@ -301,12 +328,10 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
     p.add(Level::Ok, format!("kernels, EOP, stations{} loaded", if lp.ctx.clocks.is_empty() { "" } else { ", clock tables" }));
     let mut bodies = vec![399];
     bodies.extend(lp.ctx.shapiro.iter().map(|b| b.naif_id));
+    let scanned = scanned.unwrap_or_else(|| scan_partitions(input.unwrap_or(&lp.input_path), super::pulsar::read_pulsar_input, |facts, i| facts.add(&i.day, &i.frac, &i.site, None, None), |i| &i.obs_id));
     each_partition(
         p,
-        input.unwrap_or(&lp.input_path),
-        super::pulsar::read_pulsar_input,
-        |facts, i| facts.add(&i.day, &i.frac, &i.site, None, None),
-        |i| &i.obs_id,
+        scanned,
         |p, f, facts, s| {
             p.add(Level::Ok, format!("{}: {} rows, arrival MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
             unknown_codes(p, &lp.ctx.stations, "site", &facts.codes);
@@ -334,7 +359,11 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
 }
 
 fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::tracking::LoadedTracking> {
-    let lt = match super::tracking::load_tracking(file) {
+    // The input is scanned while the shared inputs load.
+    let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::tracking::TrackingPipeline>().ok().map(|c| file.resolve(c.input_path())));
+    let scan_with = |i: &Path| scan_partitions(i, super::tracking::read_tracking_input, |facts, i| facts.add(&i.day, &i.frac, &i.rx_station, Some(&i.tx_station), Some(&i.kind)), |i| &i.obs_id);
+    let (lt, scanned) = rayon::join(|| super::tracking::load_tracking(file), || input_path.as_deref().map(scan_with));
+    let lt = match lt {
         Ok(lt) => lt,
         Err(e) => {
             p.add(Level::Unusable, e.to_string());
@@ -344,12 +373,10 @@ fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflig
     p.add(Level::Ok, "kernels, EOP, stations loaded");
     let mut bodies = vec![399, lt.ctx.target];
     bodies.extend(lt.ctx.shapiro.iter().map(|b| b.naif_id));
+    let scanned = scanned.unwrap_or_else(|| scan_with(input.unwrap_or(&lt.input_path)));
     each_partition(
         p,
-        input.unwrap_or(&lt.input_path),
-        super::tracking::read_tracking_input,
-        |facts, i| facts.add(&i.day, &i.frac, &i.rx_station, Some(&i.tx_station), Some(&i.kind)),
-        |i| &i.obs_id,
+        scanned,
         |p, f, facts, s| {
             p.add(Level::Ok, format!("{}: {} rows, reception MJD {} … {}", f.display(), s.rows, s.lo, s.hi));
             let bad_kinds: Vec<&str> = facts.kinds.iter().filter(|k| k.parse::<crate::tracking::observables::Kind>().is_err()).map(String::as_str).collect();

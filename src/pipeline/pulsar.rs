@@ -139,6 +139,13 @@ pub struct PulsarPipeline {
     output: OutputCfg,
 }
 
+impl PulsarPipeline {
+    /// The observations path as written in the pipeline (relative to it).
+    pub(super) fn input_path(&self) -> &Path {
+        &self.input.path
+    }
+}
+
 /// Default Shapiro bodies for pulsar timing (REFERENCE.md §5).
 pub const DEFAULT_PULSAR_SHAPIRO: &[&str] = &["sun", "venus", "jupiter", "saturn", "uranus", "neptune"];
 

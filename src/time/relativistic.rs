@@ -114,6 +114,9 @@ pub struct TdbGrid {
     values_s: Vec<f64>,
 }
 
+/// The series behind [`tdb_minus_tt_geocentric_s`], naming its tables in
+/// the model cache (change it with the series or its crate's version).
+pub const TDB_MODEL: &str = "tdbtt-dtdb-uv0-sofars-0.6.3";
 /// Grid step of [`TdbGrid`], days.
 pub const TDB_GRID_STEP_DAY: f64 = 0.5;
 /// Interpolation points of [`TdbGrid`] (even).
@@ -127,8 +130,10 @@ impl TdbGrid {
         let step_fs = (step_day * FS_PER_DAY as f64).round() as i128;
         let first_node = div_floor(first_tt_fs, step_fs).0 as i64 - TDB_PAD;
         let last_node = div_floor(last_tt_fs, step_fs).0 as i64 + TDB_PAD + 1;
-        use rayon::prelude::*;
-        let values_s = (first_node..=last_node).into_par_iter().map(|k| tdb_minus_tt_geocentric_s(k as i128 * step_fs)).collect();
+        // Node k sits at k · step: computed in parallel, or read from the
+        // model cache (the same bits; see `crate::model_cache`).
+        let model = format!("{TDB_MODEL} step {step_fs} fs");
+        let values_s = crate::model_cache::tabulate(&model, first_node, last_node, |k| [tdb_minus_tt_geocentric_s(k as i128 * step_fs)]).into_iter().map(|[v]| v).collect();
         Self { first_node, step_fs, values_s }
     }
 
