@@ -36,7 +36,7 @@ enum Command {
         /// Write the output here instead of the pipeline's [output] path.
         #[arg(long)]
         output: Option<PathBuf>,
-        /// Worker threads (default: RAYON_NUM_THREADS or all cores).
+        /// Worker threads for the computation and the Parquet reader and writer (default: RAYON_NUM_THREADS or all cores).
         #[arg(long)]
         threads: Option<usize>,
         /// Rows per parallel work unit; results do not depend on it.
@@ -192,8 +192,14 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             Ok(ExitCode::from(report.exit_code()))
         }
         Command::Run { pipeline, input, output, threads, chunk_rows, no_plots } => {
-            // Every parallel step (loading, grids, rows) uses this many threads.
+            // Every parallel step (loading, grids, rows, and the Parquet
+            // reader and writer) uses this many threads.
             if let Some(n) = threads {
+                if std::env::var_os("POLARS_MAX_THREADS").is_none() {
+                    // SAFETY: no other thread exists yet (the worker pool is
+                    // built below, polars' pool on its first use).
+                    unsafe { std::env::set_var("POLARS_MAX_THREADS", n.to_string()) };
+                }
                 rayon::ThreadPoolBuilder::new().num_threads(n).build_global().context("cannot start the worker threads")?;
             }
             // The same checks as `lapse check`, first: stop when unusable,

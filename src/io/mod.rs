@@ -99,15 +99,65 @@ pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, Strin
         .iter()
         .map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) })
         .collect();
-    ParquetWriter::new(&mut f)
+    let mut w = ParquetWriter::new(&mut f)
         .with_compression(output_compression())
-        .set_parallel(true)
         .with_key_value_metadata(Some(KeyValueMetadata::Static(kv)))
-        .finish(df)
+        .batched(df.schema())
         .map_err(|e| werr(e.to_string()))?;
+    write_row_groups_parallel(&mut w, df).map_err(|e| werr(e.to_string()))?;
+    w.finish().map_err(|e| werr(e.to_string()))?;
+    drop(w);
     std::io::Write::flush(&mut f).map_err(|e| werr(e.to_string()))?;
     drop(f);
     std::fs::rename(&tmp, path).map_err(|e| werr(e.to_string()))?;
+    Ok(())
+}
+
+/// Rows per Parquet row group (polars' default for its writer).
+const ROW_GROUP_ROWS: usize = 512 * 512;
+
+/// Encodes and compresses each column chunk of `df` on the worker threads,
+/// then hands the finished pages to `w` in order.
+///
+/// polars' writer encodes columns in parallel but compresses their pages
+/// lazily while writing, on one thread (≈ 35 ms for 10⁵ pulsar rows); the
+/// pages are the same either way — same encodings, statistics, page size
+/// and compression as the writer's own options — so the file is too.
+pub fn write_row_groups_parallel<W: std::io::Write>(w: &mut polars::io::parquet::write::BatchedWriter<W>, df: &mut DataFrame) -> PolarsResult<()> {
+    use polars_parquet::write::{CompressedPage, CompressionOptions, Compressor, StatisticsOptions, Version, WriteOptions, array_to_columns};
+    use rayon::prelude::*;
+    let options = WriteOptions {
+        statistics: StatisticsOptions::default(),
+        version: Version::V1,
+        compression: CompressionOptions::from(output_compression()),
+        data_page_size: None,
+    };
+    let fields = w.parquet_schema().fields().to_vec();
+    let arrow_schema = df.schema().to_arrow(CompatLevel::newest());
+    let encodings = polars::io::parquet::write::get_encodings(&arrow_schema);
+    let chunked = polars::frame::chunk_df_for_writing(df, ROW_GROUP_ROWS)?;
+    for batch in chunked.iter_chunks(CompatLevel::newest(), false) {
+        if batch.len() == 0 {
+            continue;
+        }
+        let per_field: Vec<Vec<Vec<CompressedPage>>> = batch
+            .columns()
+            .par_iter()
+            .zip(fields.par_iter())
+            .zip(encodings.par_iter())
+            .map(|((array, type_), encoding)| -> PolarsResult<Vec<Vec<CompressedPage>>> {
+                array_to_columns(array, type_.clone(), options, encoding)?
+                    .into_iter()
+                    .map(|pages| {
+                        let pages = pages.map(|p| p.map_err(|e| polars_parquet::parquet::error::ParquetError::FeatureNotSupported(format!("reraised in polars: {e}"))));
+                        Compressor::new(pages, options.compression, vec![]).collect::<Result<Vec<_>, _>>().map_err(PolarsError::from)
+                    })
+                    .collect()
+            })
+            .collect::<PolarsResult<_>>()?;
+        let leaves: Vec<Vec<CompressedPage>> = per_field.into_iter().flatten().collect();
+        w.write_row_group(batch.len() as u64, &leaves)?;
+    }
     Ok(())
 }
 

@@ -371,7 +371,8 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
     // Grid the celestial pole over the batch's span (±1 day).
     lp.ctx.earth.cover_utc_days(input.day.iter().flatten().copied());
     let n = input.obs_id.len();
-    let mut pre: Vec<Option<String>> = vec![None; n];
+    // Rows rejected before computing: (row, reason), usually none.
+    let mut pre: Vec<(usize, String)> = Vec::new();
     let mut arrivals: Vec<Arrival> = Vec::with_capacity(n);
     let mut index: Vec<usize> = Vec::with_capacity(n);
     for i in 0..n {
@@ -385,7 +386,7 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
             _ => None,
         };
         match reason {
-            Some(r) => pre[i] = Some(r),
+            Some(r) => pre.push((i, r)),
             None => {
                 arrivals.push(Arrival {
                     site: input.site[i].as_deref().unwrap_or(""),
@@ -398,9 +399,17 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
         }
     }
     let computed = lp.ctx.process_batch(&arrivals);
-    let mut out: Vec<Result<ArrivalResult, String>> = pre.into_iter().map(|p| Err(p.unwrap_or_default())).collect();
+    if pre.is_empty() {
+        // Every row computed: the results are already in input order.
+        return computed;
+    }
+    let mut out: Vec<Result<ArrivalResult, String>> = Vec::with_capacity(n);
+    out.resize_with(n, || Err(String::new()));
     for (k, r) in index.into_iter().zip(computed) {
         out[k] = r;
+    }
+    for (k, reason) in pre {
+        out[k] = Err(reason);
     }
     out
 }
@@ -675,14 +684,14 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
         if w_out.is_none() {
             let mk = |p: &Path, schema: &Schema| -> Result<polars::io::parquet::write::BatchedWriter<std::fs::File>, PipelineError> {
                 let file = std::fs::File::create(p).map_err(|e| crate::io::IoError::Write { path: p.into(), message: e.to_string() })?;
-                ParquetWriter::new(file).with_compression(crate::io::output_compression()).set_parallel(false).batched(schema).map_err(|e| werr(p, e))
+                ParquetWriter::new(file).with_compression(crate::io::output_compression()).batched(schema).map_err(|e| werr(p, e))
             };
             w_out = Some(mk(&tmp_out, &f.out.schema())?);
             w_rej = Some(mk(&tmp_rej, &f.rejects.schema())?);
         }
         if let (Some(wo), Some(wr)) = (w_out.as_mut(), w_rej.as_mut()) {
-            wo.write_batch(&f.out).map_err(|e| werr(&tmp_out, e))?;
-            wr.write_batch(&f.rejects).map_err(|e| werr(&tmp_rej, e))?;
+            crate::io::write_row_groups_parallel(wo, &mut f.out).map_err(|e| werr(&tmp_out, e))?;
+            crate::io::write_row_groups_parallel(wr, &mut f.rejects).map_err(|e| werr(&tmp_rej, e))?;
         }
         rows_out += f.out.height();
         rows_rej += f.rejects.height();
@@ -741,14 +750,14 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
             let mut df = read_slice(tmp, at, slice, None)?;
             if w.is_none() {
                 let file = std::fs::File::create(&part).map_err(|e| crate::io::IoError::Write { path: part.clone(), message: e.to_string() })?;
-                w = Some(ParquetWriter::new(file).with_compression(crate::io::output_compression()).set_parallel(false).with_key_value_metadata(Some(KeyValueMetadata::Static(kv.clone()))).batched(&df.schema()).map_err(|e| werr(&part, e))?);
+                w = Some(ParquetWriter::new(file).with_compression(crate::io::output_compression()).with_key_value_metadata(Some(KeyValueMetadata::Static(kv.clone()))).batched(&df.schema()).map_err(|e| werr(&part, e))?);
             }
             if fix && offset != 0.0 {
                 let r: Vec<f64> = crate::io::Columns { df: &df, path: tmp }.f64("residual_s")?.iter().map(|v| v.unwrap_or(f64::NAN) - offset).collect();
                 df.with_column(Column::new("residual_s".into(), r)).map_err(|e| werr(&part, e))?;
             }
             if let Some(w) = w.as_mut() {
-                w.write_batch(&df).map_err(|e| werr(&part, e))?;
+                crate::io::write_row_groups_parallel(w, &mut df).map_err(|e| werr(&part, e))?;
             }
             at += slice;
             if at >= n {

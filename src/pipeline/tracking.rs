@@ -225,7 +225,12 @@ pub fn compute_tracking(lt: &mut LoadedTracking, input: &TrackingInput, check_va
             Err(e) => out.push(Err(e)),
         }
     }
-    for (k, r) in index.into_iter().zip(lt.ctx.compute_batch(&rows)) {
+    let computed = lt.ctx.compute_batch(&rows);
+    if index.len() == n {
+        // Every row computed: the results are already in input order.
+        return computed;
+    }
+    for (k, r) in index.into_iter().zip(computed) {
         out[k] = r;
     }
     out
