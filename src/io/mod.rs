@@ -162,12 +162,12 @@ pub fn write_row_groups_parallel<W: std::io::Write>(w: &mut polars::io::parquet:
 }
 
 /// A typed view of a table's columns that names the file in every error.
-pub struct Columns<'a> {
+pub struct Columns<'a, 'p> {
     pub df: &'a DataFrame,
-    pub path: &'a Path,
+    pub path: &'p Path,
 }
 
-impl<'a> Columns<'a> {
+impl<'a> Columns<'a, '_> {
     fn column(&self, name: &str, expected: &str) -> Result<&'a Column, IoError> {
         self.df.column(name).map_err(|_| IoError::MissingColumn {
             path: self.path.into(),
@@ -211,9 +211,14 @@ impl<'a> Columns<'a> {
 
     /// A required String column.
     pub fn str(&self, name: &str) -> Result<Vec<Option<String>>, IoError> {
-        let c = self.column(name, "string")?;
+        Ok(self.str_ref(name)?.into_iter().map(|v| v.map(str::to_string)).collect())
+    }
+
+    /// A string column as views into the frame (no string copied).
+    pub fn str_ref(&self, name: &str) -> Result<Vec<Option<&'a str>>, IoError> {
+        let c: &'a Column = self.column(name, "string")?;
         let ca = c.str().map_err(|_| self.type_err(name, c, "string"))?;
-        Ok(ca.iter().map(|v| v.map(str::to_string)).collect())
+        Ok(ca.iter().collect())
     }
 }
 

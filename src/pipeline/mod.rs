@@ -196,12 +196,12 @@ pub fn reason_class(reason: &str) -> String {
 }
 
 /// Fails on a null or duplicate `obs_id`, naming the rows.
-pub fn check_unique_ids(ids: &[Option<String>], path: &Path) -> Result<(), PipelineError> {
+pub fn check_unique_ids<S: AsRef<str>>(ids: &[Option<S>], path: &Path) -> Result<(), PipelineError> {
     // foldhash: ≈ 4× faster than the default SipHash on short ids, and the
     // check only needs equality (no hash-flooding concern: a batch is trusted data).
     let mut seen: HashMap<&str, usize, foldhash::fast::FixedState> = HashMap::with_capacity_and_hasher(ids.len(), Default::default());
     for (row, id) in ids.iter().enumerate() {
-        let Some(id) = id.as_deref() else {
+        let Some(id) = id.as_ref().map(AsRef::as_ref) else {
             return Err(IoError::Value { path: path.into(), column: "obs_id".into(), row, message: "null obs_id".into() }.into());
         };
         if let Some(first) = seen.insert(id, row) {
@@ -528,11 +528,11 @@ impl IdChecker {
     }
 
     /// Records the ids of rows `first_row ..` (null ids are refused at once).
-    pub fn check(&mut self, ids: &[Option<String>], first_row: usize, path: &Path) -> Result<(), PipelineError> {
+    pub fn check<S: AsRef<str>>(&mut self, ids: &[Option<S>], first_row: usize, path: &Path) -> Result<(), PipelineError> {
         use std::hash::BuildHasher;
         for (k, id) in ids.iter().enumerate() {
             let row = first_row + k;
-            let Some(id) = id.as_deref() else {
+            let Some(id) = id.as_ref().map(AsRef::as_ref) else {
                 return Err(IoError::Value { path: path.into(), column: "obs_id".into(), row, message: "null obs_id".into() }.into());
             };
             self.pairs.push((self.hasher.hash_one(id), row as u32));

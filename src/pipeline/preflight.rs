@@ -96,33 +96,54 @@ struct Facts {
 }
 
 impl Facts {
-    fn add(&mut self, days: &[Option<i64>], fracs: &[Option<f64>], codes: &[Option<String>], codes2: Option<&[Option<String>]>, kinds: Option<&[Option<String>]>) {
+    fn add<S: AsRef<str>, K: AsRef<str>>(&mut self, days: &[Option<i64>], fracs: &[Option<f64>], codes: &[Option<S>], codes2: Option<&[Option<S>]>, kinds: Option<&[Option<K>]>) {
         if self.rows == 0 {
             self.first_mjd = f64::INFINITY;
             self.last_mjd = f64::NEG_INFINITY;
         }
         self.rows += days.len();
+        // Counted per slice in hash maps keyed by the borrowed codes (no
+        // String and no ordered-map walk per row), merged into the ordered
+        // maps once per slice.
+        type Fast<K, V> = std::collections::HashMap<K, V, foldhash::fast::FixedState>;
+        let mut day_rows: Fast<i64, usize> = Fast::default();
+        let (mut c1, mut c2): (Fast<&str, (usize, i64, i64)>, Fast<&str, (usize, i64, i64)>) = (Fast::default(), Fast::default());
+        fn note<'s>(m: &mut Fast<&'s str, (usize, i64, i64)>, c: Option<&'s str>, d: i64) {
+            if let Some(c) = c.filter(|c| !c.is_empty()) {
+                let e = m.entry(c).or_insert((0, d, d));
+                e.0 += 1;
+                e.1 = e.1.min(d);
+                e.2 = e.2.max(d);
+            }
+        }
         for (i, d) in days.iter().enumerate() {
             let Some(d) = *d else { continue };
             let t = d as f64 + fracs[i].filter(|x| x.is_finite()).unwrap_or(0.0);
             self.first_mjd = self.first_mjd.min(t);
             self.last_mjd = self.last_mjd.max(t);
-            *self.days.entry(d).or_default() += 1;
-            let note = |m: &mut BTreeMap<String, (usize, i64, i64)>, c: &Option<String>| {
-                if let Some(c) = c.as_deref().filter(|c| !c.is_empty()) {
-                    let e = m.entry(c.to_string()).or_insert((0, d, d));
-                    e.0 += 1;
-                    e.1 = e.1.min(d);
-                    e.2 = e.2.max(d);
-                }
-            };
-            note(&mut self.codes, &codes[i]);
-            if let Some(c2) = codes2 {
-                note(&mut self.codes2, &c2[i]);
+            *day_rows.entry(d).or_default() += 1;
+            note(&mut c1, codes[i].as_ref().map(AsRef::as_ref), d);
+            if let Some(codes2) = codes2 {
+                note(&mut c2, codes2[i].as_ref().map(AsRef::as_ref), d);
+            }
+        }
+        for (d, n) in day_rows {
+            *self.days.entry(d).or_default() += n;
+        }
+        for (m, part) in [(&mut self.codes, c1), (&mut self.codes2, c2)] {
+            for (c, (n, lo, hi)) in part {
+                let e = m.entry(c.to_string()).or_insert((0, lo, hi));
+                e.0 += n;
+                e.1 = e.1.min(lo);
+                e.2 = e.2.max(hi);
             }
         }
         if let Some(k) = kinds {
-            self.kinds.extend(k.iter().flatten().cloned());
+            for k in k.iter().flatten().map(AsRef::as_ref) {
+                if !self.kinds.contains(k) {
+                    self.kinds.insert(k.to_string());
+                }
+            }
         }
     }
 
@@ -147,11 +168,12 @@ enum Scanned {
 /// Reads every file of an input (file, folder or glob) in slices: typed
 /// columns, unique ids, and the facts the checks need. Needs nothing loaded,
 /// so it runs while the shared inputs load. `Err`: the input names no files.
-fn scan_partitions<I>(
+///
+/// `slice(df, file, first_row, facts, ids)` reads one slice's typed columns,
+/// records its ids (rows from `first_row`) and adds its facts.
+fn scan_partitions(
     input: &Path,
-    read: impl Fn(&polars::prelude::DataFrame, &Path) -> Result<I, super::PipelineError>,
-    add: impl Fn(&mut Facts, &I),
-    ids_of: impl Fn(&I) -> &[Option<String>],
+    slice: impl Fn(&polars::prelude::DataFrame, &Path, usize, &mut Facts, &mut super::IdChecker) -> Result<(), super::PipelineError>,
 ) -> Result<Vec<Scanned>, String> {
     let (files, _) = resolve_inputs(input).map_err(|e| e.to_string())?;
     let mut out = Vec::with_capacity(files.len());
@@ -167,19 +189,10 @@ fn scan_partitions<I>(
         let mut ids = super::IdChecker::new(n);
         let mut at = 0usize;
         loop {
-            let parsed = super::read_parquet_slice(&f, at, PREFLIGHT_SLICE_ROWS, None).and_then(|df| read(&df, &f));
-            let part = match parsed {
-                Ok(i) => i,
-                Err(e) => {
-                    out.push(Scanned::Unusable(e.to_string()));
-                    continue 'files;
-                }
-            };
-            if let Err(e) = ids.check(ids_of(&part), at, &f) {
+            if let Err(e) = super::read_parquet_slice(&f, at, PREFLIGHT_SLICE_ROWS, None).and_then(|df| slice(&df, &f, at, &mut facts, &mut ids)) {
                 out.push(Scanned::Unusable(e.to_string()));
                 continue 'files;
             }
-            add(&mut facts, &part);
             at += PREFLIGHT_SLICE_ROWS;
             if at >= n {
                 break;
@@ -316,8 +329,15 @@ pub fn preflight_prepared(path: &Path, input: Option<&Path>) -> (Preflight, Opti
 fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::pulsar::LoadedPulsar> {
     // The input is scanned while the shared inputs load.
     let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::pulsar::PulsarPipeline>().ok().map(|c| file.resolve(c.input_path())));
-    let scan = || input_path.as_deref().map(|i| scan_partitions(i, super::pulsar::read_pulsar_input, |facts, i| facts.add(&i.day, &i.frac, &i.site, None, None), |i| &i.obs_id));
-    let (lp, scanned) = rayon::join(|| super::pulsar::load_pulsar(file), scan);
+    let scan_with = |i: &Path| {
+        scan_partitions(i, |df, f, at, facts, ids| {
+            let i = super::pulsar::read_pulsar_input(df, f)?;
+            ids.check(&i.obs_id, at, f)?;
+            facts.add::<&str, &str>(&i.day, &i.frac, &i.site, None, None);
+            Ok(())
+        })
+    };
+    let (lp, scanned) = rayon::join(|| super::pulsar::load_pulsar(file), || input_path.as_deref().map(scan_with));
     let lp = match lp {
         Ok(lp) => lp,
         Err(e) => {
@@ -328,7 +348,7 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
     p.add(Level::Ok, format!("kernels, EOP, stations{} loaded", if lp.ctx.clocks.is_empty() { "" } else { ", clock tables" }));
     let mut bodies = vec![399];
     bodies.extend(lp.ctx.shapiro.iter().map(|b| b.naif_id));
-    let scanned = scanned.unwrap_or_else(|| scan_partitions(input.unwrap_or(&lp.input_path), super::pulsar::read_pulsar_input, |facts, i| facts.add(&i.day, &i.frac, &i.site, None, None), |i| &i.obs_id));
+    let scanned = scanned.unwrap_or_else(|| scan_with(input.unwrap_or(&lp.input_path)));
     each_partition(
         p,
         scanned,
@@ -361,7 +381,14 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
 fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::tracking::LoadedTracking> {
     // The input is scanned while the shared inputs load.
     let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::tracking::TrackingPipeline>().ok().map(|c| file.resolve(c.input_path())));
-    let scan_with = |i: &Path| scan_partitions(i, super::tracking::read_tracking_input, |facts, i| facts.add(&i.day, &i.frac, &i.rx_station, Some(&i.tx_station), Some(&i.kind)), |i| &i.obs_id);
+    let scan_with = |i: &Path| {
+        scan_partitions(i, |df, f, at, facts, ids| {
+            let i = super::tracking::read_tracking_input(df, f)?;
+            ids.check(&i.obs_id, at, f)?;
+            facts.add(&i.day, &i.frac, &i.rx_station, Some(&i.tx_station), Some(&i.kind));
+            Ok(())
+        })
+    };
     let (lt, scanned) = rayon::join(|| super::tracking::load_tracking(file), || input_path.as_deref().map(scan_with));
     let lt = match lt {
         Ok(lt) => lt,

@@ -344,9 +344,9 @@ pub(crate) fn load_time(file: &PipelineFile, leap: Option<&Path>) -> Result<(Tim
 }
 
 /// The input columns of a pulsar batch.
-pub struct PulsarInput {
-    pub obs_id: Vec<Option<String>>,
-    pub site: Vec<Option<String>>,
+pub struct PulsarInput<'a> {
+    pub obs_id: Vec<Option<&'a str>>,
+    pub site: Vec<Option<&'a str>>,
     pub day: Vec<Option<i64>>,
     pub frac: Vec<Option<f64>>,
     pub freq_mhz: Vec<Option<f64>>,
@@ -354,11 +354,11 @@ pub struct PulsarInput {
 }
 
 /// Reads and type-checks the input columns (errors name file and column).
-pub fn read_pulsar_input(df: &DataFrame, path: &Path) -> Result<PulsarInput, PipelineError> {
+pub fn read_pulsar_input<'a>(df: &'a DataFrame, path: &Path) -> Result<PulsarInput<'a>, PipelineError> {
     let c = Columns { df, path };
     Ok(PulsarInput {
-        obs_id: c.str("obs_id")?,
-        site: c.str("site")?,
+        obs_id: c.str_ref("obs_id")?,
+        site: c.str_ref("site")?,
         day: c.i64("arrival_mjd_day")?,
         frac: c.f64("arrival_mjd_frac")?,
         freq_mhz: c.f64("freq_mhz")?,
@@ -389,7 +389,7 @@ pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<
             Some(r) => pre.push((i, r)),
             None => {
                 arrivals.push(Arrival {
-                    site: input.site[i].as_deref().unwrap_or(""),
+                    site: input.site[i].unwrap_or(""),
                     mjd_day: input.day[i].unwrap_or(0),
                     mjd_frac: input.frac[i].unwrap_or(f64::NAN),
                     freq_mhz: input.freq_mhz[i].unwrap_or(f64::NAN),
@@ -467,22 +467,44 @@ fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_pa
     let ts = &lp.ctx.earth.time;
     let parts = |e: &crate::time::Epoch| ts.mjd_parts(e).unwrap_or((e.mjd_day(), f64::NAN));
     let col_f = |name: &str, v: Vec<f64>| Column::new(name.into(), v);
-    // Exact day fractions (one u128 division each): in parallel, order kept.
+    // Three independent passes, side by side: exact day fractions (one
+    // u128 division each, themselves in parallel, order kept); one pass over
+    // the results into the value columns (results are large structs: one
+    // pass per column was memory-bound at 10⁶ rows); the accepted rows' sites
+    // as indices into a short name table (no string per row).
     use rayon::prelude::*;
-    let (tdb, bat): (Vec<(i64, f64)>, Vec<(i64, f64)>) = good.par_iter().map(|g| (parts(&g.tdb), parts(&g.bat))).unzip();
-    // One pass over the results into the columns (results are large
-    // structs: one pass per column was memory-bound at 10⁶ rows).
     let (ng, nb) = (good.len(), lp.ctx.shapiro.len());
-    let mut f64_cols: Vec<Vec<f64>> = (0..6 + nb).map(|_| Vec::with_capacity(ng)).collect();
-    let (mut pulse, mut clock_x, mut eop_p) = (Vec::with_capacity(ng), Vec::with_capacity(ng), Vec::with_capacity(ng));
-    for g in &good {
-        for (c, v) in f64_cols.iter_mut().zip([g.clock_s, g.einstein_s, g.roemer_s, g.parallax_s, g.shapiro_s, g.dispersion_s].iter().chain(&g.shapiro_body_s[..nb])) {
-            c.push(*v);
+    let day_parts = || -> (Vec<(i64, f64)>, Vec<(i64, f64)>) { good.par_iter().map(|g| (parts(&g.tdb), parts(&g.bat))).unzip() };
+    let value_columns = || {
+        let mut f64_cols: Vec<Vec<f64>> = (0..6 + nb).map(|_| Vec::with_capacity(ng)).collect();
+        let (mut pulse, mut clock_x, mut eop_p) = (Vec::with_capacity(ng), Vec::with_capacity(ng), Vec::with_capacity(ng));
+        for g in &good {
+            for (c, v) in f64_cols.iter_mut().zip([g.clock_s, g.einstein_s, g.roemer_s, g.parallax_s, g.shapiro_s, g.dispersion_s].iter().chain(&g.shapiro_body_s[..nb])) {
+                c.push(*v);
+            }
+            pulse.push(g.pulse_number);
+            clock_x.push(g.clock_extrapolated);
+            eop_p.push(g.eop_predicted);
         }
-        pulse.push(g.pulse_number);
-        clock_x.push(g.clock_extrapolated);
-        eop_p.push(g.eop_predicted);
-    }
+        (f64_cols, pulse, clock_x, eop_p)
+    };
+    let site = |i: usize| input.site[i].unwrap_or("(null)");
+    let site_indices = || {
+        let (mut site_names, mut site_idx): (Vec<String>, Vec<u32>) = (Vec::new(), Vec::with_capacity(ng));
+        for i in (0..results.len()).filter(|i| ok[*i]) {
+            let name = site(i);
+            let j = match site_names.iter().position(|n| n == name) {
+                Some(j) => j,
+                None => {
+                    site_names.push(name.to_string());
+                    site_names.len() - 1
+                }
+            };
+            site_idx.push(j as u32);
+        }
+        (site_names, site_idx)
+    };
+    let ((tdb, bat), ((f64_cols, pulse, clock_x, eop_p), (site_names, site_idx))) = rayon::join(day_parts, || rayon::join(value_columns, site_indices));
     let mut f64_cols = f64_cols.into_iter();
     let mut next_col = || f64_cols.next().unwrap_or_default();
     let mut computed = vec![
@@ -507,20 +529,6 @@ fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_pa
     computed.push(Column::new("eop_predicted".into(), eop_p));
     let reasons: Vec<String> = results.iter().filter_map(|r| r.as_ref().err().cloned()).collect();
     let (out, rejects) = assemble(df, input_path, &ok, &reasons, computed, &[])?;
-    let site = |i: usize| input.site[i].as_deref().unwrap_or("(null)");
-    // Accepted rows' sites as indices into a short name table (no string per row).
-    let (mut site_names, mut site_idx): (Vec<String>, Vec<u32>) = (Vec::new(), Vec::with_capacity(ng));
-    for i in (0..results.len()).filter(|i| ok[*i]) {
-        let name = site(i);
-        let j = match site_names.iter().position(|n| n == name) {
-            Some(j) => j,
-            None => {
-                site_names.push(name.to_string());
-                site_names.len() - 1
-            }
-        };
-        site_idx.push(j as u32);
-    }
     Ok(BatchFrames {
         out,
         rejects,
@@ -590,7 +598,7 @@ fn partition_plots<S: AsRef<str>>(output_path: &Path, sites: &[S], bat_mjd: &[f6
 /// writes them (the weighted mean removed over the batch when the pipeline
 /// asks for it), the input columns and the offset removed. `source` names
 /// the batch in errors.
-fn pulsar_frames(lp: &mut LoadedPulsar, df: &DataFrame, source: &Path) -> Result<(PulsarInput, BatchFrames, f64), PipelineError> {
+fn pulsar_frames<'a>(lp: &mut LoadedPulsar, df: &'a DataFrame, source: &Path) -> Result<(PulsarInput<'a>, BatchFrames, f64), PipelineError> {
     let t0 = std::time::Instant::now();
     let input = read_pulsar_input(df, source)?;
     check_unique_ids(&input.obs_id, source)?;
