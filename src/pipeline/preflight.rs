@@ -326,29 +326,41 @@ pub fn preflight_prepared(path: &Path, input: Option<&Path>) -> (Preflight, Opti
     (p, Some(Prepared { file, loaded }))
 }
 
-fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::pulsar::LoadedPulsar> {
-    // The input is scanned while the shared inputs load.
-    let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::pulsar::PulsarPipeline>().ok().map(|c| file.resolve(c.input_path())));
-    let scan_with = |i: &Path| {
-        scan_partitions(i, |df, f, at, facts, ids| {
-            let i = super::pulsar::read_pulsar_input(df, f)?;
-            ids.check(&i.obs_id, at, f)?;
-            facts.add::<&str, &str>(&i.day, &i.frac, &i.site, None, None);
-            Ok(())
-        })
-    };
-    let (lp, scanned) = rayon::join(|| super::pulsar::load_pulsar(file), || input_path.as_deref().map(scan_with));
-    let lp = match lp {
-        Ok(lp) => lp,
+/// Loads a pipeline's shared inputs while scanning its input (`input`:
+/// given on the command line or read from the pipeline; when neither is
+/// known the scan follows the load, on the loaded pipeline's input path).
+/// `None` after reporting the load's error as unusable.
+fn load_and_scan<L: Send, E: std::fmt::Display + Send>(
+    p: &mut Preflight,
+    input: Option<std::path::PathBuf>,
+    load: impl FnOnce() -> Result<L, E> + Send,
+    input_of: impl Fn(&L) -> &Path,
+    slice: impl Fn(&polars::prelude::DataFrame, &Path, usize, &mut Facts, &mut super::IdChecker) -> Result<(), super::PipelineError> + Sync,
+) -> Option<(L, Result<Vec<Scanned>, String>)> {
+    let (loaded, scanned) = rayon::join(load, || input.as_deref().map(|i| scan_partitions(i, &slice)));
+    match loaded {
+        Ok(l) => {
+            let scanned = scanned.unwrap_or_else(|| scan_partitions(input_of(&l), &slice));
+            Some((l, scanned))
+        }
         Err(e) => {
             p.add(Level::Unusable, e.to_string());
-            return None;
+            None
         }
-    };
+    }
+}
+
+fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::pulsar::LoadedPulsar> {
+    let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::pulsar::PulsarPipeline>().ok().map(|c| file.resolve(c.input_path())));
+    let (lp, scanned) = load_and_scan(p, input_path, || super::pulsar::load_pulsar(file), |lp| &lp.input_path, |df, f, at, facts, ids| {
+        let i = super::pulsar::read_pulsar_input(df, f)?;
+        ids.check(&i.obs_id, at, f)?;
+        facts.add::<&str, &str>(&i.day, &i.frac, &i.site, None, None);
+        Ok(())
+    })?;
     p.add(Level::Ok, format!("kernels, EOP, stations{} loaded", if lp.ctx.clocks.is_empty() { "" } else { ", clock tables" }));
     let mut bodies = vec![399];
     bodies.extend(lp.ctx.shapiro.iter().map(|b| b.naif_id));
-    let scanned = scanned.unwrap_or_else(|| scan_with(input.unwrap_or(&lp.input_path)));
     each_partition(
         p,
         scanned,
@@ -379,28 +391,16 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
 }
 
 fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::tracking::LoadedTracking> {
-    // The input is scanned while the shared inputs load.
     let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::tracking::TrackingPipeline>().ok().map(|c| file.resolve(c.input_path())));
-    let scan_with = |i: &Path| {
-        scan_partitions(i, |df, f, at, facts, ids| {
-            let i = super::tracking::read_tracking_input(df, f)?;
-            ids.check(&i.obs_id, at, f)?;
-            facts.add(&i.day, &i.frac, &i.rx_station, Some(&i.tx_station), Some(&i.kind));
-            Ok(())
-        })
-    };
-    let (lt, scanned) = rayon::join(|| super::tracking::load_tracking(file), || input_path.as_deref().map(scan_with));
-    let lt = match lt {
-        Ok(lt) => lt,
-        Err(e) => {
-            p.add(Level::Unusable, e.to_string());
-            return None;
-        }
-    };
+    let (lt, scanned) = load_and_scan(p, input_path, || super::tracking::load_tracking(file), |lt| &lt.input_path, |df, f, at, facts, ids| {
+        let i = super::tracking::read_tracking_input(df, f)?;
+        ids.check(&i.obs_id, at, f)?;
+        facts.add(&i.day, &i.frac, &i.rx_station, Some(&i.tx_station), Some(&i.kind));
+        Ok(())
+    })?;
     p.add(Level::Ok, "kernels, EOP, stations loaded");
     let mut bodies = vec![399, lt.ctx.target];
     bodies.extend(lt.ctx.shapiro.iter().map(|b| b.naif_id));
-    let scanned = scanned.unwrap_or_else(|| scan_with(input.unwrap_or(&lt.input_path)));
     each_partition(
         p,
         scanned,
