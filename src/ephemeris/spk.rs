@@ -51,7 +51,7 @@ impl TdbSeconds {
 
     /// This epoch shifted by `delta_s` seconds.
     pub fn plus_s(&self, delta_s: f64) -> Self {
-        let d = delta_s.trunc();
+        let d = trunc_s(delta_s);
         Self::new(self.whole_s + d as i64, self.frac_s + (delta_s - d))
     }
 
@@ -59,7 +59,7 @@ impl TdbSeconds {
     /// (segment boundaries, record midpoints), without losing the fraction:
     /// the integer parts are subtracted exactly first.
     pub fn minus_f64_s(&self, x_s: f64) -> f64 {
-        let xi = x_s.trunc();
+        let xi = trunc_s(x_s);
         ((self.whole_s as f64) - xi) + (self.frac_s - (x_s - xi))
     }
 
@@ -67,6 +67,16 @@ impl TdbSeconds {
     pub fn approx_s(&self) -> f64 {
         self.whole_s as f64 + self.frac_s
     }
+}
+
+/// `x.trunc()` through a hardware conversion where it is exact (|x| < 2^62:
+/// every epoch in seconds); the library call otherwise. Baseline x86-64 has
+/// no rounding instruction, so `trunc` is a call, and segment look-ups make
+/// several per evaluation. A negative fraction gives +0.0 instead of −0.0,
+/// which no caller can see (it is only subtracted).
+#[inline]
+fn trunc_s(x: f64) -> f64 {
+    if x.abs() < 4.611_686_018_427_388e18 { (x as i64) as f64 } else { x.trunc() }
 }
 
 /// Position (km) and velocity (km/s) of a target relative to a centre,

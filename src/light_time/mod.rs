@@ -161,7 +161,7 @@ where
     F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String>,
 {
     let uniform = solve_backward_from(t_rx, x_rx_m, shapiro, tau0_s, |t| {
-        let dt_s = (t.label_fs() - anchor.t.label_fs()) as f64 * 1e-15;
+        let dt_s = crate::time::femto::i128_as_f64(t.label_fs() - anchor.t.label_fs()) * 1e-15;
         Ok((anchor.x_m + anchor.v_m_s * dt_s, anchor.v_m_s))
     })?;
     solve_backward_from(t_rx, x_rx_m, shapiro, uniform.light_time_s, tx_state)
@@ -189,7 +189,7 @@ mod tests {
         let t = ts.epoch_from_mjd(TimeScale::Tdb, 60_000, 0.5).unwrap();
         let v = 30_000.0;
         let leg = solve_backward(&t, &Vector3::zeros(), &ShapiroSet::none(), |e| {
-            let dt = (e.label_fs() - t.label_fs()) as f64 * 1e-15;
+            let dt = crate::time::femto::i128_as_f64(e.label_fs() - t.label_fs()) * 1e-15;
             Ok((Vector3::new(1e11 + v * dt, 0.0, 0.0), Vector3::new(v, 0.0, 0.0)))
         })
         .unwrap();
@@ -206,7 +206,7 @@ mod tests {
         let ts = TimeScales::builtin();
         let t = ts.epoch_from_mjd(TimeScale::Tdb, 60_000, 0.5).unwrap();
         let state = |e: &Epoch| {
-            let dt = (e.label_fs() - t.label_fs()) as f64 * 1e-15;
+            let dt = crate::time::femto::i128_as_f64(e.label_fs() - t.label_fs()) * 1e-15;
             Ok((Vector3::new(1e11 + 3e4 * dt + 0.01 * dt * dt, 2e3 * dt, 0.0), Vector3::new(3e4 + 0.02 * dt, 2e3, 0.0)))
         };
         let exact = solve_backward(&t, &Vector3::zeros(), &ShapiroSet::none(), state).unwrap();

@@ -105,7 +105,7 @@ pub fn ratio_to_f64(num_fs: i128, den_fs: i128) -> f64 {
     // Both operands exact in f64: IEEE division is already correctly rounded.
     const EXACT: i128 = 1 << 53;
     if num_fs.abs() <= EXACT && den_fs <= EXACT {
-        return num_fs as f64 / den_fs as f64;
+        return i128_as_f64(num_fs) / i128_as_f64(den_fs);
     }
     ratio_corrected(num_fs, den_fs).unwrap_or_else(|| ratio_three_candidates(num_fs, den_fs))
 }
@@ -259,6 +259,16 @@ pub fn div_floor(a: i128, b: i128) -> (i128, i128) {
     (q, a - q * b)
 }
 
+/// i128 → f64, rounded to nearest exactly as `x as f64`, by one hardware
+/// conversion when `x` fits in an i64 (the i128 cast is a library call).
+#[inline]
+pub fn i128_as_f64(x: i128) -> f64 {
+    match i64::try_from(x) {
+        Ok(v) => v as f64,
+        Err(_) => x as f64,
+    }
+}
+
 /// i128 → f64 within a few ulp (two hardware conversions), for estimates.
 #[inline]
 fn i128_to_f64(x: i128) -> f64 {
@@ -315,6 +325,14 @@ pub fn fraction_digits(num: i128, den: i128, places: usize) -> (String, bool) {
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn i128_as_f64_equals_the_cast() {
+        use super::*;
+        for x in [0i128, 1, -1, 1 << 53, (1 << 53) + 1, -(1 << 60) - 3, i64::MAX as i128, i64::MIN as i128, i64::MAX as i128 + 1, 1 << 100, -(1 << 90) - 12345] {
+            assert_eq!(i128_as_f64(x).to_bits(), (x as f64).to_bits(), "{x}");
+        }
+    }
+
     #[test]
     fn div_floor_equals_div_euclid() {
         // Exact floor division on epochs of the crate's range and beyond,
