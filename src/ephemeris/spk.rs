@@ -458,10 +458,17 @@ impl DiscreteStates {
     /// interpolating polynomial, checked against spiceypy on the same file
     /// (`tests/tracking_reference.rs`).
     pub fn evaluate(&self, t: &TdbSeconds) -> StateKm {
+        // Scratch arrays on the stack sized for the window: small windows
+        // (the usual 8–16 states) do not clear buffers for 64.
+        if self.window <= SMALL_WINDOW { self.evaluate_in::<SMALL_WINDOW, { 2 * SMALL_WINDOW }>(t) } else { self.evaluate_in::<MAX_WINDOW, { 2 * MAX_WINDOW }>(t) }
+    }
+
+    /// [`Self::evaluate`] with scratch room for `CAP` states (`CAP2` = 2·CAP).
+    fn evaluate_in<const CAP: usize, const CAP2: usize>(&self, t: &TdbSeconds) -> StateKm {
         let f = self.window_start(t);
         let w = self.window;
         // Abscissae relative to t (two-part subtraction keeps precision).
-        let mut x = [0.0f64; MAX_WINDOW];
+        let mut x = [0.0f64; CAP];
         for (j, i) in (f..f + w).enumerate() {
             x[j] = -t.minus_f64_s(self.epochs_s[i]);
         }
@@ -471,17 +478,17 @@ impl DiscreteStates {
         // the results are those of the per-axis routines bit for bit, and
         // the divisions by the shared node differences vectorise).
         let mut s = StateKm::default();
-        let (mut p, mut v) = ([[0.0f64; LANES]; MAX_WINDOW], [[0.0f64; LANES]; MAX_WINDOW]);
+        let (mut p, mut v) = ([[0.0f64; LANES]; CAP], [[0.0f64; LANES]; CAP]);
         for (j, st) in self.states[f..f + w].iter().enumerate() {
             p[j] = [st[0], st[1], st[2], 0.0];
             v[j] = [st[3], st[4], st[5], 0.0];
         }
         if self.hermite {
-            let (val, der) = hermite_at_zero_lanes(x, &p[..w], &v[..w]);
+            let (val, der) = hermite_at_zero_lanes::<CAP2>(x, &p[..w], &v[..w]);
             s.position_km = [val[0], val[1], val[2]];
             s.velocity_km_s = [der[0], der[1], der[2]];
         } else {
-            let (pos, vel) = (lagrange_at_zero_lanes(x, &p[..w]), lagrange_at_zero_lanes(x, &v[..w]));
+            let (pos, vel) = (lagrange_at_zero_lanes::<CAP>(x, &p[..w]), lagrange_at_zero_lanes::<CAP>(x, &v[..w]));
             s.position_km = [pos[0], pos[1], pos[2]];
             s.velocity_km_s = [vel[0], vel[1], vel[2]];
         }
@@ -489,15 +496,19 @@ impl DiscreteStates {
     }
 }
 
+/// Windows up to this many states use small scratch arrays.
+const SMALL_WINDOW: usize = 16;
+
 /// Lanes of the multi-axis interpolation (three axes and one idle lane, a
 /// width the compiler maps onto vector registers).
 const LANES: usize = 4;
 
 /// [`lagrange_at_zero`] for several ordinates sharing the abscissae, one per
 /// lane: each lane is computed with exactly the scalar routine's operations.
-fn lagrange_at_zero_lanes(x: &[f64], y: &[[f64; LANES]]) -> [f64; LANES] {
+/// `CAP` ≥ `x.len()` sizes the scratch array.
+fn lagrange_at_zero_lanes<const CAP: usize>(x: &[f64], y: &[[f64; LANES]]) -> [f64; LANES] {
     let n = x.len();
-    let mut p = [[0.0f64; LANES]; MAX_WINDOW];
+    let mut p = [[0.0f64; LANES]; CAP];
     p[..n].copy_from_slice(y);
     for m in 1..n {
         for i in 0..n - m {
@@ -514,15 +525,16 @@ fn lagrange_at_zero_lanes(x: &[f64], y: &[[f64; LANES]]) -> [f64; LANES] {
 /// [`hermite_at_zero`] for several ordinates sharing the abscissae, one per
 /// lane: value and derivative at 0, each lane computed with exactly the
 /// scalar routine's operations.
-fn hermite_at_zero_lanes(x: &[f64], y: &[[f64; LANES]], dy: &[[f64; LANES]]) -> ([f64; LANES], [f64; LANES]) {
+/// `CAP2` ≥ `2 · x.len()` sizes the scratch arrays.
+fn hermite_at_zero_lanes<const CAP2: usize>(x: &[f64], y: &[[f64; LANES]], dy: &[[f64; LANES]]) -> ([f64; LANES], [f64; LANES]) {
     let n = 2 * x.len();
-    let mut z = [0.0f64; 2 * MAX_WINDOW];
+    let mut z = [0.0f64; CAP2];
     for k in 0..n {
         z[k] = x[k / 2];
     }
-    let mut coef = [[0.0f64; LANES]; 2 * MAX_WINDOW];
+    let mut coef = [[0.0f64; LANES]; CAP2];
     coef[0] = y[0];
-    let mut col = [[0.0f64; LANES]; 2 * MAX_WINDOW];
+    let mut col = [[0.0f64; LANES]; CAP2];
     for k in 0..n - 1 {
         if k % 2 == 0 {
             col[k] = dy[k / 2];
@@ -640,8 +652,12 @@ mod tests {
             let x: Vec<f64> = (0..w).map(|k| (k as f64 - w as f64 / 2.0) * 60.0 + rnd()).collect();
             let y: Vec<[f64; LANES]> = (0..w).map(|_| [rnd() * 1e8, rnd() * 1e5, rnd(), 0.0]).collect();
             let dy: Vec<[f64; LANES]> = (0..w).map(|_| [rnd() * 30.0, rnd(), rnd() * 1e-3, 0.0]).collect();
-            let (hv, hd) = hermite_at_zero_lanes(&x, &y, &dy);
-            let lv = lagrange_at_zero_lanes(&x, &y);
+            let (hv, hd) = hermite_at_zero_lanes::<{ 2 * MAX_WINDOW }>(&x, &y, &dy);
+            let lv = lagrange_at_zero_lanes::<MAX_WINDOW>(&x, &y);
+            // The small-window scratch sizes give the same bits.
+            let (hs, hds) = hermite_at_zero_lanes::<{ 2 * SMALL_WINDOW }>(&x, &y, &dy);
+            assert_eq!((hs.map(f64::to_bits), hds.map(f64::to_bits)), (hv.map(f64::to_bits), hd.map(f64::to_bits)));
+            assert_eq!(lagrange_at_zero_lanes::<SMALL_WINDOW>(&x, &y).map(f64::to_bits), lv.map(f64::to_bits));
             for l in 0..3 {
                 let (yl, dyl): (Vec<f64>, Vec<f64>) = (y.iter().map(|r| r[l]).collect(), dy.iter().map(|r| r[l]).collect());
                 let (v, d) = hermite_at_zero(&x, &yl, &dyl);
