@@ -85,10 +85,11 @@ where
                 tracing::warn!(path = %path.display(), "cached model table disagrees with the series; recomputing it");
             }
             let vals: Vec<[f64; W]> = (lo..=hi).into_par_iter().map(&f).collect();
-            if lo == b0 && hi == b1 {
-                if let Err(e) = write_block(dir, &path, &id, b, &vals) {
-                    tracing::debug!(path = %path.display(), error = %e, "model table not cached");
-                }
+            if lo == b0
+                && hi == b1
+                && let Err(e) = write_block(dir, &path, &id, b, &vals)
+            {
+                tracing::debug!(path = %path.display(), error = %e, "model table not cached");
             }
             vals
         })

@@ -137,7 +137,7 @@ pub fn write_row_groups_parallel<W: std::io::Write>(w: &mut polars::io::parquet:
     let encodings = polars::io::parquet::write::get_encodings(&arrow_schema);
     let chunked = polars::frame::chunk_df_for_writing(df, ROW_GROUP_ROWS)?;
     for batch in chunked.iter_chunks(CompatLevel::newest(), false) {
-        if batch.len() == 0 {
+        if batch.is_empty() {
             continue;
         }
         let per_field: Vec<Vec<Vec<CompressedPage>>> = batch

@@ -106,9 +106,12 @@ impl Facts {
         // String and no ordered-map walk per row), merged into the ordered
         // maps once per slice.
         type Fast<K, V> = std::collections::HashMap<K, V, foldhash::fast::FixedState>;
+        /// Rows, first and last day of one code.
+        type CodeRows = (usize, i64, i64);
         let mut day_rows: Fast<i64, usize> = Fast::default();
-        let (mut c1, mut c2): (Fast<&str, (usize, i64, i64)>, Fast<&str, (usize, i64, i64)>) = (Fast::default(), Fast::default());
-        fn note<'s>(m: &mut Fast<&'s str, (usize, i64, i64)>, c: Option<&'s str>, d: i64) {
+        let mut c1: Fast<&str, CodeRows> = Fast::default();
+        let mut c2: Fast<&str, CodeRows> = Fast::default();
+        fn note<'s>(m: &mut Fast<&'s str, CodeRows>, c: Option<&'s str>, d: i64) {
             if let Some(c) = c.filter(|c| !c.is_empty()) {
                 let e = m.entry(c).or_insert((0, d, d));
                 e.0 += 1;
