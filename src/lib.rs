@@ -22,5 +22,16 @@ pub mod pulsar;
 pub mod time;
 pub mod tracking;
 
+/// Deterministic pseudo-random numbers for the unit tests: Marsaglia's
+/// xorshift64 with the shift triple (13, 7, 17) (G. Marsaglia, "Xorshift
+/// RNGs", J. Stat. Softw. 8(14), 2003; citation from memory). One step.
+#[cfg(test)]
+pub(crate) fn xorshift64(state: &mut u64) -> u64 {
+    *state ^= *state << 13;
+    *state ^= *state >> 7;
+    *state ^= *state << 17;
+    *state
+}
+
 /// Version of lapse (from Cargo.toml).
 pub const VERSION: &str = env!("CARGO_PKG_VERSION");

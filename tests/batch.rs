@@ -10,9 +10,7 @@ use std::path::{Path, PathBuf};
 use lapse::pipeline::batch::BatchEngine;
 
 fn input_of(pipeline: &Path) -> PathBuf {
-    let text = std::fs::read_to_string(pipeline).unwrap();
-    let t: toml::Table = toml::from_str(&text).unwrap();
-    pipeline.parent().unwrap().join(t["input"]["path"].as_str().unwrap())
+    lapse::pipeline::PipelineFile::read(pipeline).unwrap().input_path().unwrap()
 }
 
 #[test]

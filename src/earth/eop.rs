@@ -194,7 +194,7 @@ impl crate::time::Ut1Source for EopTable {
 }
 
 /// 4-point Lagrange interpolation at `t` through (x_k, y_k).
-pub fn lagrange4(x: &[f64; 4], y: &[f64; 4], t: f64) -> f64 {
+fn lagrange4(x: &[f64; 4], y: &[f64; 4], t: f64) -> f64 {
     let mut sum = 0.0;
     for k in 0..4 {
         let mut w = 1.0;

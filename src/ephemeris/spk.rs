@@ -642,12 +642,7 @@ mod tests {
         // Pseudo-random windows of 2..=16 nodes: each lane must be exactly
         // the scalar routine's result (same operations, same order).
         let mut seed = 0x2545_f491_4f6c_dd1du64;
-        let mut rnd = || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            (seed >> 11) as f64 / (1u64 << 53) as f64 - 0.5
-        };
+        let mut rnd = || (crate::xorshift64(&mut seed) >> 11) as f64 / (1u64 << 53) as f64 - 0.5;
         for w in 2..=16 {
             let x: Vec<f64> = (0..w).map(|k| (k as f64 - w as f64 / 2.0) * 60.0 + rnd()).collect();
             let y: Vec<[f64; LANES]> = (0..w).map(|_| [rnd() * 1e8, rnd() * 1e5, rnd(), 0.0]).collect();

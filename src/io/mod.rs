@@ -83,6 +83,12 @@ pub fn output_compression() -> ParquetCompression {
     ParquetCompression::Zstd(polars_parquet::write::ZstdLevel::try_new(1).ok())
 }
 
+/// The temporary name a Parquet file is written under until complete
+/// (`x.parquet` → `x.parquet.partial`), then renamed to `path`.
+pub fn partial_path(path: &Path) -> PathBuf {
+    path.with_extension("parquet.partial")
+}
+
 /// Writes a table with key-value metadata to `path`, through a temporary
 /// file renamed into place only when complete (columns compressed in
 /// parallel).
@@ -91,7 +97,7 @@ pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, Strin
     if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
         std::fs::create_dir_all(dir).map_err(|e| werr(e.to_string()))?;
     }
-    let tmp = path.with_extension("parquet.partial");
+    let tmp = partial_path(path);
     // Buffered: the writer emits the footer a few bytes at a time (≈ 2300
     // write calls per file unbuffered).
     let mut f = std::io::BufWriter::with_capacity(1 << 20, File::create(&tmp).map_err(|e| werr(e.to_string()))?);
@@ -149,7 +155,7 @@ pub fn write_row_groups_parallel<W: std::io::Write>(w: &mut polars::io::parquet:
                 array_to_columns(array, type_.clone(), options, encoding)?
                     .into_iter()
                     .map(|pages| {
-                        let pages = pages.map(|p| p.map_err(|e| polars_parquet::parquet::error::ParquetError::FeatureNotSupported(format!("reraised in polars: {e}"))));
+                        let pages = pages.map(|p| p.map_err(|e| polars_parquet::parquet::error::ParquetError::FeatureNotSupported(format!("encoding a page: {e}"))));
                         Compressor::new(pages, options.compression, vec![]).collect::<Result<Vec<_>, _>>().map_err(PolarsError::from)
                     })
                     .collect()

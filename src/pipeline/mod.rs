@@ -77,6 +77,14 @@ impl PipelineFile {
         toml::from_str(&self.text).map_err(|e| PipelineError::Invalid { path: self.path.clone(), message: e.to_string() })
     }
 
+    /// The pipeline's `[input] path`, resolved against its folder (every
+    /// kind has one); `None` when the file has none.
+    pub fn input_path(&self) -> Option<PathBuf> {
+        let table: toml::Table = toml::from_str(&self.text).ok()?;
+        let p = table.get("input")?.get("path")?.as_str()?;
+        Some(self.resolve(Path::new(p)))
+    }
+
     /// A path from the pipeline, resolved against the pipeline's folder.
     pub fn resolve(&self, p: &Path) -> PathBuf {
         if p.is_absolute() {
@@ -404,8 +412,8 @@ pub fn up_to_date(output: &Path, expected: &Provenance) -> bool {
 /// when complete.
 pub fn partial_paths(output: &Path) -> [PathBuf; 4] {
     [
-        output.with_extension("parquet.partial"),
-        rejects_path(output).with_extension("parquet.partial"),
+        crate::io::partial_path(output),
+        crate::io::partial_path(&rejects_path(output)),
         output.with_extension("stream-out.partial"),
         output.with_extension("stream-rejects.partial"),
     ]
@@ -482,18 +490,12 @@ where
 pub fn input_rows(pipeline: &Path, input: Option<&Path>) -> Option<usize> {
     let path = match input {
         Some(i) => i.to_path_buf(),
-        None => {
-            let file = PipelineFile::read(pipeline).ok()?;
-            let table: toml::Table = toml::from_str(&file.text).ok()?;
-            let p = table.get("input")?.get("path")?.as_str()?;
-            file.resolve(Path::new(p))
-        }
+        None => PipelineFile::read(pipeline).ok()?.input_path()?,
     };
     let (files, _) = resolve_inputs(&path).ok()?;
     let mut n = 0;
     for f in files {
-        let fh = std::fs::File::open(&f).ok()?;
-        n += ParquetReader::new(fh).num_rows().ok()?;
+        n += parquet_rows(&f).ok()?;
     }
     Some(n)
 }

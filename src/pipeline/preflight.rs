@@ -354,7 +354,7 @@ fn load_and_scan<L: Send, E: std::fmt::Display + Send>(
 }
 
 fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::pulsar::LoadedPulsar> {
-    let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::pulsar::PulsarPipeline>().ok().map(|c| file.resolve(c.input_path())));
+    let input_path = input.map(Path::to_path_buf).or_else(|| file.input_path());
     let (lp, scanned) = load_and_scan(p, input_path, || super::pulsar::load_pulsar(file), |lp| &lp.input_path, |df, f, at, facts, ids| {
         let i = super::pulsar::read_pulsar_input(df, f)?;
         ids.check(&i.obs_id, at, f)?;
@@ -394,7 +394,7 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
 }
 
 fn preflight_tracking(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight) -> Option<super::tracking::LoadedTracking> {
-    let input_path = input.map(Path::to_path_buf).or_else(|| file.parse::<super::tracking::TrackingPipeline>().ok().map(|c| file.resolve(c.input_path())));
+    let input_path = input.map(Path::to_path_buf).or_else(|| file.input_path());
     let (lt, scanned) = load_and_scan(p, input_path, || super::tracking::load_tracking(file), |lt| &lt.input_path, |df, f, at, facts, ids| {
         let i = super::tracking::read_tracking_input(df, f)?;
         ids.check(&i.obs_id, at, f)?;

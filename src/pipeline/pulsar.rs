@@ -139,13 +139,6 @@ pub struct PulsarPipeline {
     output: OutputCfg,
 }
 
-impl PulsarPipeline {
-    /// The observations path as written in the pipeline (relative to it).
-    pub(super) fn input_path(&self) -> &Path {
-        &self.input.path
-    }
-}
-
 /// Default Shapiro bodies for pulsar timing (REFERENCE.md §5).
 pub const DEFAULT_PULSAR_SHAPIRO: &[&str] = &["sun", "venus", "jupiter", "saturn", "uranus", "neptune"];
 
@@ -278,21 +271,13 @@ pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg
     }
     // The kernels and the EOP file are independent: read them concurrently.
     let eop_path = file.resolve(&earth_cfg.eop);
-    let timed = |what: &'static str, t0: std::time::Instant| tracing::debug!(load_s = t0.elapsed().as_secs_f64(), "{what} loaded");
-    let (ephemeris, eop) = rayon::join(
-        || {
-            let t0 = std::time::Instant::now();
-            let e = Ephemeris::load(&kernels);
-            timed("kernels", t0);
-            e
-        },
-        || {
-            let t0 = std::time::Instant::now();
-            let e = EopTable::from_file(&eop_path);
-            timed("EOP", t0);
-            e
-        },
-    );
+    fn timed<R>(what: &str, load: impl FnOnce() -> R) -> R {
+        let t0 = std::time::Instant::now();
+        let r = load();
+        tracing::debug!(load_s = t0.elapsed().as_secs_f64(), "{what} loaded");
+        r
+    }
+    let (ephemeris, eop) = rayon::join(|| timed("kernels", || Ephemeris::load(&kernels)), || timed("EOP", || EopTable::from_file(&eop_path)));
     let ephemeris = ephemeris.map_err(|e| invalid(format!("[ephemeris] {e}")))?;
     let eop = eop.map_err(|e| invalid(format!("[earth] {e}")))?;
     for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
@@ -459,52 +444,49 @@ struct BatchFrames {
     clock_extrapolated: usize,
 }
 
-fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_path: &Path, results: &[Result<ArrivalResult, String>], offset: f64) -> Result<BatchFrames, PipelineError> {
+/// σ (s) of the accepted rows, in input order.
+fn accepted_sigma_s(results: &[Result<ArrivalResult, String>], input: &PulsarInput) -> Vec<f64> {
+    results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect()
+}
+
+/// The frames of one batch; `sigma_s` from [`accepted_sigma_s`].
+fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_path: &Path, results: &[Result<ArrivalResult, String>], sigma_s: Vec<f64>, offset: f64) -> Result<BatchFrames, PipelineError> {
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<&ArrivalResult> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
-    let sigma_s: Vec<f64> = results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect();
     let residual: Vec<f64> = good.iter().map(|g| g.residual_s - offset).collect();
     let ts = &lp.ctx.earth.time;
     let parts = |e: &crate::time::Epoch| ts.mjd_parts(e).unwrap_or((e.mjd_day(), f64::NAN));
     let col_f = |name: &str, v: Vec<f64>| Column::new(name.into(), v);
-    // Three independent passes, side by side: exact day fractions (one
-    // u128 division each, themselves in parallel, order kept); one pass over
-    // the results into the value columns (results are large structs: one
-    // pass per column was memory-bound at 10⁶ rows); the accepted rows' sites
-    // as indices into a short name table (no string per row).
+    // Exact day fractions (one u128 division each): in parallel, order kept.
     use rayon::prelude::*;
+    let (tdb, bat): (Vec<(i64, f64)>, Vec<(i64, f64)>) = good.par_iter().map(|g| (parts(&g.tdb), parts(&g.bat))).unzip();
+    // One pass over the results into the value columns (results are large
+    // structs: one pass per column was memory-bound at 10⁶ rows).
     let (ng, nb) = (good.len(), lp.ctx.shapiro.len());
-    let day_parts = || -> (Vec<(i64, f64)>, Vec<(i64, f64)>) { good.par_iter().map(|g| (parts(&g.tdb), parts(&g.bat))).unzip() };
-    let value_columns = || {
-        let mut f64_cols: Vec<Vec<f64>> = (0..6 + nb).map(|_| Vec::with_capacity(ng)).collect();
-        let (mut pulse, mut clock_x, mut eop_p) = (Vec::with_capacity(ng), Vec::with_capacity(ng), Vec::with_capacity(ng));
-        for g in &good {
-            for (c, v) in f64_cols.iter_mut().zip([g.clock_s, g.einstein_s, g.roemer_s, g.parallax_s, g.shapiro_s, g.dispersion_s].iter().chain(&g.shapiro_body_s[..nb])) {
-                c.push(*v);
-            }
-            pulse.push(g.pulse_number);
-            clock_x.push(g.clock_extrapolated);
-            eop_p.push(g.eop_predicted);
+    let mut f64_cols: Vec<Vec<f64>> = (0..6 + nb).map(|_| Vec::with_capacity(ng)).collect();
+    let (mut pulse, mut clock_x, mut eop_p) = (Vec::with_capacity(ng), Vec::with_capacity(ng), Vec::with_capacity(ng));
+    for g in &good {
+        for (c, v) in f64_cols.iter_mut().zip([g.clock_s, g.einstein_s, g.roemer_s, g.parallax_s, g.shapiro_s, g.dispersion_s].iter().chain(&g.shapiro_body_s[..nb])) {
+            c.push(*v);
         }
-        (f64_cols, pulse, clock_x, eop_p)
-    };
+        pulse.push(g.pulse_number);
+        clock_x.push(g.clock_extrapolated);
+        eop_p.push(g.eop_predicted);
+    }
+    // Accepted rows' sites as indices into a short name table (no string per row).
     let site = |i: usize| input.site[i].unwrap_or("(null)");
-    let site_indices = || {
-        let (mut site_names, mut site_idx): (Vec<String>, Vec<u32>) = (Vec::new(), Vec::with_capacity(ng));
-        for i in (0..results.len()).filter(|i| ok[*i]) {
-            let name = site(i);
-            let j = match site_names.iter().position(|n| n == name) {
-                Some(j) => j,
-                None => {
-                    site_names.push(name.to_string());
-                    site_names.len() - 1
-                }
-            };
-            site_idx.push(j as u32);
-        }
-        (site_names, site_idx)
-    };
-    let ((tdb, bat), ((f64_cols, pulse, clock_x, eop_p), (site_names, site_idx))) = rayon::join(day_parts, || rayon::join(value_columns, site_indices));
+    let (mut site_names, mut site_idx): (Vec<String>, Vec<u32>) = (Vec::new(), Vec::with_capacity(ng));
+    for i in (0..results.len()).filter(|i| ok[*i]) {
+        let name = site(i);
+        let j = match site_names.iter().position(|n| n == name) {
+            Some(j) => j,
+            None => {
+                site_names.push(name.to_string());
+                site_names.len() - 1
+            }
+        };
+        site_idx.push(j as u32);
+    }
     let mut f64_cols = f64_cols.into_iter();
     let mut next_col = || f64_cols.next().unwrap_or_default();
     let mut computed = vec![
@@ -606,10 +588,10 @@ fn pulsar_frames<'a>(lp: &mut LoadedPulsar, df: &'a DataFrame, source: &Path) ->
     let results = compute_pulsar(lp, &input);
     let t2 = std::time::Instant::now();
     // Residuals: optional weighted-mean removal over the accepted rows.
-    let sigma_s: Vec<f64> = results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect();
+    let sigma_s = accepted_sigma_s(&results, &input);
     let raw: Vec<f64> = results.iter().filter_map(|r| r.as_ref().ok()).map(|g| g.residual_s).collect();
     let offset = if lp.subtract_weighted_mean { residual_summary(&raw, &sigma_s, false).weighted_mean_s } else { 0.0 };
-    let f = batch_frames(lp, df, &input, source, &results, offset)?;
+    let f = batch_frames(lp, df, &input, source, &results, sigma_s, offset)?;
     tracing::debug!(rows = df.height(), columns_s = (t1 - t0).as_secs_f64(), compute_s = (t2 - t1).as_secs_f64(), frames_s = t2.elapsed().as_secs_f64(), "pulsar batch");
     Ok((input, f, offset))
 }
@@ -623,7 +605,7 @@ pub fn pulsar_batch(lp: &mut LoadedPulsar, df: &DataFrame, source: &Path) -> Res
 /// One partition of a pulsar run: in memory, or streamed in slices above
 /// [`STREAM_ABOVE_ROWS`] rows (same results, bounded memory).
 fn run_pulsar_partition(lp: &mut LoadedPulsar, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
-    let n_rows = std::fs::File::open(input_path).ok().and_then(|f| crate::io::guarded(|| ParquetReader::new(f).num_rows().ok()).flatten()).unwrap_or(0);
+    let n_rows = super::parquet_rows(input_path).unwrap_or(0);
     if n_rows > env_usize("LAPSE_STREAM_ROWS", STREAM_ABOVE_ROWS) {
         return run_pulsar_partition_streamed(lp, input_path, output_path, prov, plots, n_rows);
     }
@@ -688,7 +670,7 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
         let input = read_pulsar_input(&df, input_path)?;
         ids.check(&input.obs_id, offset_row, input_path)?;
         let results = compute_pulsar(lp, &input);
-        let mut f = batch_frames(lp, &df, &input, input_path, &results, 0.0)?;
+        let mut f = batch_frames(lp, &df, &input, input_path, &results, accepted_sigma_s(&results, &input), 0.0)?;
         if w_out.is_none() {
             let mk = |p: &Path, schema: &Schema| -> Result<polars::io::parquet::write::BatchedWriter<std::fs::File>, PipelineError> {
                 let file = std::fs::File::create(p).map_err(|e| crate::io::IoError::Write { path: p.into(), message: e.to_string() })?;
@@ -751,7 +733,7 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
     // Pass 2: final files, residuals with the offset removed, full metadata.
     let kv: Vec<polars_parquet::write::KeyValue> = metadata.iter().map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) }).collect();
     for (tmp, fin, n, fix) in [(&tmp_rej, rejects_path(output_path), rows_rej, false), (&tmp_out, output_path.to_path_buf(), rows_out, true)] {
-        let part = fin.with_extension("parquet.partial");
+        let part = crate::io::partial_path(&fin);
         let mut w: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>> = None;
         let mut at = 0usize;
         loop {

@@ -74,13 +74,6 @@ pub struct TrackingPipeline {
     output: OutputCfg,
 }
 
-impl TrackingPipeline {
-    /// The observations path as written in the pipeline (relative to it).
-    pub(super) fn input_path(&self) -> &Path {
-        &self.input.path
-    }
-}
-
 /// A loaded tracking pipeline.
 #[derive(Debug)]
 pub struct LoadedTracking {

@@ -110,9 +110,9 @@ pub fn ratio_to_f64(num_fs: i128, den_fs: i128) -> f64 {
     ratio_corrected(num_fs, den_fs).unwrap_or_else(|| ratio_three_candidates(num_fs, den_fs))
 }
 
-/// u128 → f64 for the first guess: exact rounding below 2^64 (hardware
+/// u128 → f64 for first guesses: exact rounding below 2^64 (hardware
 /// conversion), within one ulp above (two conversions and an add; the
-/// correction loop absorbs it).
+/// callers' exact corrections absorb it).
 #[inline]
 fn u128_to_f64(x: u128) -> f64 {
     let hi = (x >> 64) as u64;
@@ -269,10 +269,11 @@ pub fn i128_as_f64(x: i128) -> f64 {
     }
 }
 
-/// i128 → f64 within a few ulp (two hardware conversions), for estimates.
+/// i128 → f64 within one ulp ([`u128_to_f64`] of the magnitude), for estimates.
 #[inline]
 fn i128_to_f64(x: i128) -> f64 {
-    ((x >> 64) as i64) as f64 * 18_446_744_073_709_551_616.0 + (x as u64) as f64
+    let m = u128_to_f64(x.unsigned_abs());
+    if x < 0 { -m } else { m }
 }
 
 /// Parses a decimal fraction given as its digits after the point (at most
@@ -339,12 +340,7 @@ mod tests {
         // including exact multiples and their neighbours.
         use super::*;
         let mut seed = 0x9e37_79b9_7f4a_7c15u64;
-        let mut next = || {
-            seed ^= seed << 13;
-            seed ^= seed >> 7;
-            seed ^= seed << 17;
-            seed
-        };
+        let mut next = || crate::xorshift64(&mut seed);
         for b in [FS_PER_S, FS_PER_DAY, FS_PER_DAY / 2, 86_401 * FS_PER_S, 7, 1] {
             for _ in 0..20_000 {
                 let a = ((next() as i128) << 32 | (next() >> 32) as i128) % (1i128 << 90) - (1i128 << 89);
@@ -367,12 +363,7 @@ mod tests {
     #[test]
     fn ratio_matches_three_candidate_reference() {
         let mut x: u64 = 0x9E37_79B9_7F4A_7C15;
-        let mut next = || {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
-            x
-        };
+        let mut next = || crate::xorshift64(&mut x);
         let dens: [i128; 7] = [FS_PER_S, FS_PER_DAY, 86_401 * FS_PER_S, 86_399 * FS_PER_S, FS_PER_DAY / 2, FS_PER_DAY / 8, 3];
         for i in 0..1_000_000u64 {
             let den = if i % 8 == 7 { (next() as i128 >> (next() % 40)) | 1 } else { dens[(i % 7) as usize] };
@@ -414,9 +405,7 @@ mod tests {
         // for both 86 400 s and 86 401 s days.
         let mut x: u64 = 0x1234_5678_9abc_def1;
         for _ in 0..20_000 {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
+            crate::xorshift64(&mut x);
             let frac = (x >> 11) as f64 / (1u64 << 53) as f64;
             if frac < 1.0 / 16384.0 {
                 continue;
