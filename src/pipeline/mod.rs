@@ -529,9 +529,13 @@ impl IdChecker {
         Self { pairs: Vec::with_capacity(capacity), hasher: Default::default() }
     }
 
-    /// Records the ids of rows `first_row ..` (null ids are refused at once).
+    /// Records the ids of rows `first_row ..` (null ids are refused at once;
+    /// rows are kept as u32, so a file beyond 2³² − 1 rows is refused too).
     pub fn check<S: AsRef<str>>(&mut self, ids: &[Option<S>], first_row: usize, path: &Path) -> Result<(), PipelineError> {
         use std::hash::BuildHasher;
+        if first_row + ids.len() > u32::MAX as usize {
+            return Err(PipelineError::Invalid { path: path.into(), message: format!("more than {} rows in one file: split it into partitions", u32::MAX) });
+        }
         for (k, id) in ids.iter().enumerate() {
             let row = first_row + k;
             let Some(id) = id.as_ref().map(AsRef::as_ref) else {
@@ -578,5 +582,21 @@ pub fn parquet_rows(path: &Path) -> Result<usize, PipelineError> {
         Some(Ok(n)) => Ok(n),
         Some(Err(e)) => Err(IoError::Parquet { path: path.into(), message: e.to_string() }.into()),
         None => Err(IoError::Parquet { path: path.into(), message: "the file is corrupt (reader failed)".into() }.into()),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn id_checker_refuses_rows_beyond_u32_instead_of_wrapping() {
+        // Row numbers are stored as u32: past 2³² − 1 they would wrap and the
+        // duplicate confirmation would re-read the wrong rows.
+        let p = Path::new("big.parquet");
+        let mut ids = IdChecker::new(2);
+        assert!(ids.check(&[Some("a")], u32::MAX as usize - 1, p).is_ok());
+        let e = ids.check(&[Some("b")], u32::MAX as usize, p).unwrap_err().to_string();
+        assert!(e.contains("split it into partitions"), "{e}");
     }
 }
