@@ -2,7 +2,8 @@
 //! (types 2 and 3) evaluated here on a two-part TDB epoch.
 //!
 //! anise parses and validates the DAF container (file record, endianness,
-//! summary records); we copy each segment's doubles and evaluate them
+//! summary records); the file's doubles are read once into one aligned
+//! buffer that the Chebyshev segments share, and we evaluate them
 //! ourselves, because anise's query epoch is an `f64` of TDB seconds past
 //! J2000, which resolves ≈ 0.1 µs in this century (≈ 3.6 mm of Earth
 //! motion; `REFERENCE.md` §10), above the 1 mm this tool needs.
@@ -15,6 +16,7 @@
 //! container.
 
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 use anise::naif::daf::NAIFSummaryRecord;
 use anise::naif::spk::summary::SPKSummaryRecord;
@@ -112,8 +114,12 @@ pub struct ChebyshevData {
     pub n_coeffs: usize,
     /// Type 3 carries velocity coefficients too.
     pub with_velocity: bool,
-    /// The records: [mid, radius, x…, y…, z… (, vx…, vy…, vz…)] each.
-    pub records: Vec<f64>,
+    /// The kernel's doubles (shared by its segments, not copied per
+    /// segment); the records start at `first`: [mid, radius, x…, y…, z…
+    /// (, vx…, vy…, vz…)] each.
+    records: Arc<Vec<f64>>,
+    /// Index in `records` of the first record's first double.
+    first: usize,
 }
 
 /// Discrete states of a type 9 (Lagrange) or type 13 (Hermite) segment.
@@ -159,14 +165,10 @@ impl ChebyshevData {
     fn record_at(&self, t: &TdbSeconds) -> (&[f64], f64) {
         let since_init = t.minus_f64_s(self.init_s);
         let idx = ((since_init / self.interval_s).floor().max(0.0) as usize).min(self.n_records - 1);
-        let rec = &self.records[idx * self.record_len..(idx + 1) * self.record_len];
+        let at = self.first + idx * self.record_len;
+        let rec = &self.records[at..at + self.record_len];
         (rec, t.minus_f64_s(rec[0]) / rec[1])
     }
-}
-
-/// Native-endian doubles of a segment's bytes.
-fn f64s(raw: &[u8]) -> impl Iterator<Item = f64> + '_ {
-    raw.chunks_exact(8).map(|c| f64::from_ne_bytes(c.try_into().expect("8 bytes")))
 }
 
 /// Maximum Chebyshev degree we accept (DE kernels use ≤ 13; guards corrupt files).
@@ -296,16 +298,28 @@ impl SpkKernel {
     /// [`EphemerisError::Kernel`] naming the file for anything unreadable,
     /// truncated or inconsistent.
     pub fn load(path: &Path) -> Result<Self, EphemerisError> {
-        let (bytes, stamp) = crate::io::digest::read_stamped(path).map_err(|e| kernel_err(path, e.to_string()))?;
+        let (doubles, len, stamp) = read_doubles(path).map_err(|e| kernel_err(path, e.to_string()))?;
+        let doubles = Arc::new(doubles);
         // The provenance digest is taken while the records are parsed.
-        rayon::join(|| crate::io::digest::remember(path, stamp, &bytes), || Self::parse(&bytes, path)).1
+        rayon::join(|| crate::io::digest::remember(path, stamp, &as_bytes(&doubles)[..len]), || Self::parse_doubles(&doubles, len, path)).1
     }
 
     /// Parses SPK bytes; `path` names the file in errors.
     pub fn parse(bytes: &[u8], path: &Path) -> Result<Self, EphemerisError> {
+        let mut doubles = vec![0.0f64; bytes.len().div_ceil(8)];
+        as_bytes_mut(&mut doubles)[..bytes.len()].copy_from_slice(bytes);
+        Self::parse_doubles(&Arc::new(doubles), bytes.len(), path)
+    }
+
+    /// Parses a kernel held as native-endian doubles (`len` bytes of file).
+    fn parse_doubles(buf: &Arc<Vec<f64>>, len: usize, path: &Path) -> Result<Self, EphemerisError> {
+        let bytes = &as_bytes(buf)[..len];
         // anise's DAF reader is careful, but a crafted file must never take the
-        // process down: contain any panic as an error.
-        let parsed = crate::io::guarded(|| anise::naif::SPK::parse(bytes));
+        // process down: contain any panic as an error. It copies what it is
+        // given, so it gets the records up to the last summary and name
+        // record only, not the data arrays (≈ 16 MB for a DE kernel).
+        let head = &bytes[..daf_summary_extent(bytes).unwrap_or(len)];
+        let parsed = crate::io::guarded(|| anise::naif::SPK::parse(head));
         let daf = match parsed {
             Some(Ok(d)) => d,
             Some(Err(e)) => return Err(kernel_err(path, format!("not a readable SPK file: {e}"))),
@@ -319,23 +333,21 @@ impl SpkKernel {
         if summaries.is_empty() {
             return Err(kernel_err(path, "no segments"));
         }
-        let data = &daf.bytes;
-        // Segments are independent: their records are copied in parallel.
+        // Segments are independent: they are checked in parallel.
         use rayon::prelude::*;
         let segments = summaries.par_iter().enumerate().map(|(k, s)| -> Result<Segment, EphemerisError> {
             let (a, b) = (s.start_idx as i64, s.end_idx as i64);
-            if a < 1 || b < a || (b as usize) * 8 > data.len() {
-                return Err(kernel_err(path, format!("segment {k} (target {}) points outside the file (doubles {a}..{b}, file {} bytes): truncated?", s.target_id, data.len())));
+            if a < 1 || b < a || (b as usize) * 8 > len {
+                return Err(kernel_err(path, format!("segment {k} (target {}) points outside the file (doubles {a}..{b}, file {len} bytes): truncated?", s.target_id)));
             }
-            let raw = &data[(a as usize - 1) * 8..b as usize * 8];
-            let doubles = || -> Vec<f64> { f64s(raw).collect() };
+            let (first, raw) = (a as usize - 1, &buf[a as usize - 1..b as usize]);
             if !s.start_epoch_et_s.is_finite() || !s.end_epoch_et_s.is_finite() || s.end_epoch_et_s < s.start_epoch_et_s {
                 return Err(kernel_err(path, format!("segment {k} (target {}) has a bad coverage", s.target_id)));
             }
             let seg_err = |m: String| kernel_err(path, format!("segment {k} (target {}, type {}): {m}", s.target_id, s.data_type_i));
             let data = match s.data_type_i {
-                2 | 3 => SegmentData::Chebyshev(parse_chebyshev(raw, s.data_type_i == 3).map_err(seg_err)?),
-                9 | 13 => SegmentData::Discrete(parse_discrete(&doubles(), s.data_type_i == 13).map_err(seg_err)?),
+                2 | 3 => SegmentData::Chebyshev(parse_chebyshev(buf, first, raw.len(), s.data_type_i == 3).map_err(seg_err)?),
+                9 | 13 => SegmentData::Discrete(parse_discrete(raw, s.data_type_i == 13).map_err(seg_err)?),
                 _ => SegmentData::Unsupported,
             };
             Ok(Segment {
@@ -354,16 +366,86 @@ impl SpkKernel {
     }
 }
 
-/// Types 2/3 straight from the segment's bytes (native-endian doubles): the
-/// coefficients are copied once, into the records.
-fn parse_chebyshev(raw: &[u8], with_velocity: bool) -> Result<ChebyshevData, String> {
-    let n_doubles = raw.len() / 8;
+/// DAF record length, bytes (NAIF DAF Required Reading, "DAF Structure").
+const DAF_RECORD_BYTES: usize = 1024;
+
+/// Bytes from the start of a DAF file to the end of its last summary
+/// record's name record: all anise needs to list the segments. Follows the
+/// forward chain from the file record (FWARD, a 1-based record number at
+/// byte 76) through each summary record's NEXT (its first double), each
+/// summary record followed by its name record. `None` (use the whole file)
+/// when a pointer is not a plain record number inside the file or the
+/// chain loops; anise then reports the damage.
+///
+/// # References
+/// NAIF DAF Required Reading, "The File Record" and "Summary Records".
+fn daf_summary_extent(bytes: &[u8]) -> Option<usize> {
+    let n_records = bytes.len() / DAF_RECORD_BYTES;
+    let fward = i32::from_ne_bytes(bytes.get(76..80)?.try_into().ok()?);
+    let mut rec = usize::try_from(fward).ok()?;
+    let mut last = 0;
+    for _ in 0..=n_records {
+        if rec == 0 {
+            return (last > 0).then_some(last * DAF_RECORD_BYTES);
+        }
+        if rec >= n_records {
+            return None; // the name record (rec + 1) must lie in the file too
+        }
+        last = last.max(rec + 1);
+        let at = (rec - 1) * DAF_RECORD_BYTES;
+        let next = f64::from_ne_bytes(bytes.get(at..at + 8)?.try_into().ok()?);
+        if !(next >= 0.0 && next.fract() == 0.0 && next <= n_records as f64) {
+            return None;
+        }
+        rec = next as usize;
+    }
+    None
+}
+
+/// Reads a file into native-endian doubles (the last one zero-padded), with
+/// its length in bytes and its stamp for [`crate::io::digest::remember`].
+fn read_doubles(path: &Path) -> std::io::Result<(Vec<f64>, usize, Option<crate::io::digest::Stamp>)> {
+    use std::io::Read;
+    let before = crate::io::digest::stamp(path);
+    let mut f = std::fs::File::open(path)?;
+    let hint = f.metadata().map(|m| m.len() as usize).unwrap_or(0);
+    let mut doubles = vec![0.0f64; hint.div_ceil(8)];
+    let mut len = 0;
+    loop {
+        if len == doubles.len() * 8 {
+            doubles.resize(doubles.len() + 8192, 0.0);
+        }
+        let n = f.read(&mut as_bytes_mut(&mut doubles)[len..])?;
+        if n == 0 {
+            break;
+        }
+        len += n;
+    }
+    doubles.truncate(len.div_ceil(8));
+    let st = before.filter(|st| st.0 == len as u64 && crate::io::digest::stamp(path).as_ref() == Some(st));
+    Ok((doubles, len, st))
+}
+
+/// The bytes of a slice of doubles (native endianness).
+fn as_bytes(d: &[f64]) -> &[u8] {
+    // SAFETY: u8 has alignment 1 and the byte length is exactly the doubles'.
+    unsafe { std::slice::from_raw_parts(d.as_ptr().cast::<u8>(), std::mem::size_of_val(d)) }
+}
+
+/// The bytes of a slice of doubles, writable: every bit pattern is a valid f64.
+fn as_bytes_mut(d: &mut [f64]) -> &mut [u8] {
+    // SAFETY: as `as_bytes`; any bytes written form valid f64 values.
+    unsafe { std::slice::from_raw_parts_mut(d.as_mut_ptr().cast::<u8>(), std::mem::size_of_val(d)) }
+}
+
+/// Types 2/3 in place: the records stay in the kernel's buffer `buf`,
+/// whose doubles `first .. first + n_doubles` are the segment.
+fn parse_chebyshev(buf: &Arc<Vec<f64>>, first: usize, n_doubles: usize, with_velocity: bool) -> Result<ChebyshevData, String> {
     if n_doubles < 4 + 5 {
         return Err(format!("only {n_doubles} doubles"));
     }
-    let mut dir = f64s(&raw[(n_doubles - 4) * 8..n_doubles * 8]);
-    let mut next = || dir.next().unwrap_or(f64::NAN);
-    let (init_s, interval_s, rsize, n) = (next(), next(), next(), next());
+    let seg = &buf[first..first + n_doubles];
+    let [init_s, interval_s, rsize, n] = [seg[n_doubles - 4], seg[n_doubles - 3], seg[n_doubles - 2], seg[n_doubles - 1]];
     if !init_s.is_finite() || !(interval_s.is_finite() && interval_s > 0.0) {
         return Err(format!("bad directory: init {init_s}, interval {interval_s}"));
     }
@@ -382,7 +464,7 @@ fn parse_chebyshev(raw: &[u8], with_velocity: bool) -> Result<ChebyshevData, Str
     if record_len.checked_mul(n_records).map(|x| x + 4) != Some(n_doubles) {
         return Err(format!("{} records of {record_len} doubles do not fill the segment's {} doubles", n_records, n_doubles));
     }
-    let records: Vec<f64> = f64s(&raw[..record_len * n_records * 8]).collect();
+    let records = &seg[..record_len * n_records];
     if records.iter().any(|x| !x.is_finite()) {
         return Err("non-finite coefficient".into());
     }
@@ -391,7 +473,7 @@ fn parse_chebyshev(raw: &[u8], with_velocity: bool) -> Result<ChebyshevData, Str
             return Err(format!("record radius {} is not positive", r[1]));
         }
     }
-    Ok(ChebyshevData { init_s, interval_s, record_len, n_records, n_coeffs, with_velocity, records })
+    Ok(ChebyshevData { init_s, interval_s, record_len, n_records, n_coeffs, with_velocity, records: Arc::clone(buf), first })
 }
 
 /// Parses a type 9 or 13 segment: N states (6 doubles each), N epochs, the
@@ -680,7 +762,7 @@ mod tests {
         let rec = vec![10.0, 5.0, 3.0, 2.0, 0.0, -1.0, 0.0, 0.0, 0.5, 0.0, 0.5];
         let mut d = rec.clone();
         d.extend([5.0, 10.0, rec.len() as f64, 1.0]);
-        let c = parse_chebyshev(&to_bytes(&d), false).unwrap();
+        let c = cheb(&d).unwrap();
         let seg = Segment { target: 1, center: 0, frame: 1, spk_type: 2, start_s: 5.0, end_s: 15.0, data: SegmentData::Chebyshev(c) };
         let t = TdbSeconds::new(12, 0.5); // τ = 0.5
         let s = seg.evaluate(&t).unwrap();
@@ -693,16 +775,66 @@ mod tests {
 
     #[test]
     fn corrupt_directories_are_errors() {
-        assert!(parse_chebyshev(&to_bytes(&[0.0; 8]), false).is_err());
+        assert!(cheb(&[0.0; 8]).is_err());
         let mut d = vec![10.0, 5.0, 3.0, 2.0, 0.0, -1.0, 0.0, 0.0, 0.5, 0.0, 0.5];
         d.extend([5.0, 10.0, 11.0, 2.0]); // claims 2 records, holds 1
-        assert!(parse_chebyshev(&to_bytes(&d), false).is_err());
-        // A segment whose length is not a whole number of doubles is refused too.
-        assert!(parse_chebyshev(&[0u8; 77], false).is_err());
+        assert!(cheb(&d).is_err());
     }
 
-    /// Doubles as the native-endian bytes of a segment.
-    fn to_bytes(d: &[f64]) -> Vec<u8> {
-        d.iter().flat_map(|x| x.to_ne_bytes()).collect()
+    #[test]
+    fn a_segment_inside_the_kernel_buffer_reads_from_its_own_offset() {
+        let rec = [10.0, 5.0, 3.0, 2.0, 0.0, -1.0, 0.0, 0.0, 0.5, 0.0, 0.5];
+        let mut buf = vec![f64::NAN; 7]; // another segment's doubles before it
+        buf.extend(rec);
+        buf.extend([5.0, 10.0, rec.len() as f64, 1.0]);
+        buf.extend([f64::NAN; 3]); // and after it
+        let c = parse_chebyshev(&Arc::new(buf), 7, rec.len() + 4, false).unwrap();
+        let seg = Segment { target: 1, center: 0, frame: 1, spk_type: 2, start_s: 5.0, end_s: 15.0, data: SegmentData::Chebyshev(c) };
+        assert_eq!(seg.position(&TdbSeconds::new(12, 0.5)), Some([4.0, -1.0, 0.25]));
+    }
+
+    #[test]
+    fn the_summary_extent_follows_the_forward_chain() {
+        // File record → summary at record 3 (name 4) → summary at 6 (name 7) → end.
+        let mut f = vec![0u8; 9 * DAF_RECORD_BYTES];
+        f[76..80].copy_from_slice(&3i32.to_ne_bytes());
+        f[2 * DAF_RECORD_BYTES..2 * DAF_RECORD_BYTES + 8].copy_from_slice(&6.0f64.to_ne_bytes());
+        f[5 * DAF_RECORD_BYTES..5 * DAF_RECORD_BYTES + 8].copy_from_slice(&0.0f64.to_ne_bytes());
+        assert_eq!(daf_summary_extent(&f), Some(7 * DAF_RECORD_BYTES));
+        // A loop, a pointer past the end and a fractional pointer: the whole file.
+        f[5 * DAF_RECORD_BYTES..5 * DAF_RECORD_BYTES + 8].copy_from_slice(&3.0f64.to_ne_bytes());
+        assert_eq!(daf_summary_extent(&f), None);
+        f[5 * DAF_RECORD_BYTES..5 * DAF_RECORD_BYTES + 8].copy_from_slice(&9.0f64.to_ne_bytes());
+        assert_eq!(daf_summary_extent(&f), None);
+        f[5 * DAF_RECORD_BYTES..5 * DAF_RECORD_BYTES + 8].copy_from_slice(&4.5f64.to_ne_bytes());
+        assert_eq!(daf_summary_extent(&f), None);
+        assert_eq!(daf_summary_extent(&f[..50]), None);
+    }
+
+    #[test]
+    fn a_kernel_parses_the_same_from_its_head_and_whole() {
+        // DE421: the segments listed from the summary records alone are the
+        // ones the whole file gives, and evaluate identically.
+        let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("data/de421.bsp");
+        let bytes = std::fs::read(&path).unwrap();
+        let extent = daf_summary_extent(&bytes).unwrap();
+        assert!(extent < bytes.len() / 100, "summary records end at byte {extent}");
+        let loaded = SpkKernel::load(&path).unwrap();
+        let parsed = SpkKernel::parse(&bytes, &path).unwrap();
+        // anise on the whole file lists the same segments.
+        let whole = anise::naif::SPK::parse(&bytes[..]).unwrap();
+        let listed: Vec<SPKSummaryRecord> = whole.iter_summary_blocks().flat_map(|b| b.unwrap().iter().filter(|s| !s.is_empty()).copied().collect::<Vec<_>>()).collect();
+        assert_eq!(listed.len(), loaded.segments.len());
+        let t = TdbSeconds::new(700_000_000, 0.25);
+        for ((a, b), s) in loaded.segments.iter().zip(&parsed.segments).zip(&listed) {
+            assert_eq!((a.target, a.center, a.start_s, a.end_s), (s.target_id, s.center_id, s.start_epoch_et_s, s.end_epoch_et_s));
+            assert_eq!((a.target, a.center, a.start_s, a.end_s), (b.target, b.center, b.start_s, b.end_s));
+            assert_eq!(a.evaluate(&t).map(|s| s.position_km), b.evaluate(&t).map(|s| s.position_km));
+        }
+    }
+
+    /// A type 2 segment made of these doubles alone.
+    fn cheb(d: &[f64]) -> Result<ChebyshevData, String> {
+        parse_chebyshev(&Arc::new(d.to_vec()), 0, d.len(), false)
     }
 }

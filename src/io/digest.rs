@@ -27,7 +27,7 @@ fn memo() -> &'static Mutex<HashMap<PathBuf, (Stamp, String)>> {
     MEMO.get_or_init(Default::default)
 }
 
-fn stamp(path: &Path) -> Option<Stamp> {
+pub(crate) fn stamp(path: &Path) -> Option<Stamp> {
     let m = std::fs::metadata(path).ok()?;
     Some((m.len(), m.modified().ok()))
 }
@@ -42,7 +42,8 @@ pub fn read_stamped(path: &Path) -> std::io::Result<(Vec<u8>, Option<Stamp>)> {
     Ok((bytes, st))
 }
 
-/// Hashes bytes read by [`read_stamped`] and remembers the digest.
+/// Hashes bytes read by [`read_stamped`] (or a loader reading the same
+/// way) and remembers the digest.
 pub fn remember(path: &Path, st: Option<Stamp>, bytes: &[u8]) {
     if let Some(st) = st {
         let digest = sha256_hex(bytes);
