@@ -22,17 +22,23 @@
 #[inline]
 pub fn uniform_lagrange_weights<const N: usize>(u: f64) -> [f64; N] {
     let lo = -((N / 2) as i64 - 1);
-    std::array::from_fn(|j| {
-        let xj = (lo + j as i64) as f64;
-        let mut w = 1.0;
-        for m in 0..N {
-            if m != j {
-                let xm = (lo + m as i64) as f64;
-                w *= (u - xm) / (xj - xm);
-            }
-        }
-        w
-    })
+    // w_j = Π_{m≠j} (u − x_m) / Π_{m≠j} (x_j − x_m): the numerator from
+    // prefix and suffix products (2N multiplications), the denominator an
+    // integer (±(N−1−j)!·j!), exact in f64 — one division per weight
+    // instead of N − 1.
+    let d: [f64; N] = std::array::from_fn(|j| u - (lo + j as i64) as f64);
+    let mut left = [1.0; N];
+    for j in 1..N {
+        left[j] = left[j - 1] * d[j - 1];
+    }
+    let mut right = 1.0;
+    let mut w = [0.0; N];
+    for j in (0..N).rev() {
+        let denom: f64 = (0..N).filter(|&m| m != j).map(|m| j as f64 - m as f64).product();
+        w[j] = left[j] * right / denom;
+        right *= d[j];
+    }
+    w
 }
 
 /// Interpolates `values` (the `N` nodes around the point, first node at

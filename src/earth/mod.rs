@@ -250,6 +250,28 @@ impl EarthModel {
         self.station_state(eph, station, &to_utc(first.observer_term_s)?)
     }
 
+    /// The station state at a TDB epoch in one pass, given the observer term
+    /// (s) at a nearby epoch of the same station (`hint_observer_s`) — for
+    /// light-time iterations, which already hold such a state.
+    ///
+    /// The returned state is exact at its own `tdb`, which differs from `t`
+    /// by the change of the observer term between the hint's epoch and `t`:
+    /// the term changes by < 2e-10 s per second (IERS Conventions 2010 eq.
+    /// 10.9: (a_E·x + v_E·v)/c²), so within 0.1 s of the hint by < 2e-11 s,
+    /// i.e. < 1e-6 m of station motion at 30 km/s. Callers needing the state
+    /// at `t` itself step the position by v·(t − tdb) (error a·δ²/2 < 1e-20 m).
+    ///
+    /// # Accuracy
+    /// See [`Self::station_state`]; the epoch offset above, bounded by the
+    /// distance of the hint.
+    ///
+    /// # References
+    /// IERS Conventions 2010, ch. 10, eq. 10.9.
+    pub fn station_state_at_tdb_hinted(&self, eph: &Ephemeris, station: &Station, t: &Epoch, hint_observer_s: f64) -> Result<StationState, EarthError> {
+        let utc = self.time.convert(*t, TimeScale::Utc, hint_observer_s).map_err(|source| EarthError::Time { context: format!("{} → UTC", t.scale()), source })?;
+        self.station_state(eph, station, &utc)
+    }
+
     /// UT1 − UTC at a UTC epoch, seconds.
     pub fn ut1_minus_utc_s(&self, utc: &Epoch) -> Result<f64, EarthError> {
         Ok(self.eop.at_utc(self.time.leap_seconds(), utc)?.ut1_minus_utc_s)

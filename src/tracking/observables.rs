@@ -223,17 +223,22 @@ impl TrackingContext {
         // acceleration (≤ 0.04 m/s²) moves it ≤ 5e-5 m; (2) iterate with
         // exact states from there, usually converging at the first one. The
         // result meets the same 0.1 ps criterion as exact iteration from zero.
-        let station = |t: &Epoch| self.earth.station_state_at(&self.ephemeris, tx, t).map_err(|e| format!("geometry unavailable: {e}"));
         let t_guess = t2.plus_fs(-s_to_fs(down.light_time_s)?).map_err(|e| e.to_string())?;
         // The anchor: one pass at the UTC of the geocentre's TDB at t_guess;
         // its state is exact at its own TDB (s0.tdb, within 2.1 µs of t_guess).
         let utc_guess = self.earth.time.convert(t_guess, TimeScale::Utc, 0.0).map_err(|e| e.to_string())?;
         let s0 = self.earth.station_state(&self.ephemeris, tx, &utc_guess).map_err(|e| format!("geometry unavailable: {e}"))?;
         let anchor = Anchor { t: s0.tdb, x_m: s0.bcrs_position_m, v_m_s: s0.bcrs_velocity_m_s };
-        let mut last = None;
+        // Exact states in one pass each, the observer term taken from the
+        // previous state of this station (≤ 0.1 s away: the state's own TDB
+        // is within 2e-11 s of the asked epoch), stepped to that epoch along
+        // its velocity (EarthModel::station_state_at_tdb_hinted).
+        let mut last: Option<crate::earth::StationState> = None;
         let up = solve_backward_anchored(&t2, &x_sc, &sh_up, down.light_time_s, &anchor, |t| {
-            let s = station(t)?;
-            let out = (s.bcrs_position_m, s.bcrs_velocity_m_s);
+            let hint_s = last.as_ref().map_or(s0.observer_term_s, |s| s.observer_term_s);
+            let s = self.earth.station_state_at_tdb_hinted(&self.ephemeris, tx, t, hint_s).map_err(|e| format!("geometry unavailable: {e}"))?;
+            let dt_s = ratio_to_f64(t.label_fs() - s.tdb.label_fs(), FS_PER_S);
+            let out = (s.bcrs_position_m + s.bcrs_velocity_m_s * dt_s, s.bcrs_velocity_m_s);
             last = Some(s);
             Ok(out)
         })
