@@ -117,7 +117,7 @@ pub struct ChebyshevData {
     /// The kernel's doubles (shared by its segments, not copied per
     /// segment); the records start at `first`: [mid, radius, x…, y…, z…
     /// (, vx…, vy…, vz…)] each.
-    records: Arc<Vec<f64>>,
+    records: Arc<KernelBytes>,
     /// Index in `records` of the first record's first double.
     first: usize,
 }
@@ -166,7 +166,7 @@ impl ChebyshevData {
         let since_init = t.minus_f64_s(self.init_s);
         let idx = ((since_init / self.interval_s).floor().max(0.0) as usize).min(self.n_records - 1);
         let at = self.first + idx * self.record_len;
-        let rec = &self.records[at..at + self.record_len];
+        let rec = &self.records.doubles()[at..at + self.record_len];
         (rec, t.minus_f64_s(rec[0]) / rec[1])
     }
 }
@@ -298,22 +298,21 @@ impl SpkKernel {
     /// [`EphemerisError::Kernel`] naming the file for anything unreadable,
     /// truncated or inconsistent.
     pub fn load(path: &Path) -> Result<Self, EphemerisError> {
-        let (doubles, len, stamp) = read_doubles(path).map_err(|e| kernel_err(path, e.to_string()))?;
-        let doubles = Arc::new(doubles);
+        let (buf, stamp) = KernelBytes::map(path).map_err(|e| kernel_err(path, e.to_string()))?;
+        let buf = Arc::new(buf);
         // The provenance digest is taken while the records are parsed.
-        rayon::join(|| crate::io::digest::remember(path, stamp, &as_bytes(&doubles)[..len]), || Self::parse_doubles(&doubles, len, path)).1
+        rayon::join(|| crate::io::digest::remember(path, stamp, buf.bytes()), || Self::parse_buffer(&buf, path)).1
     }
 
     /// Parses SPK bytes; `path` names the file in errors.
     pub fn parse(bytes: &[u8], path: &Path) -> Result<Self, EphemerisError> {
-        let mut doubles = vec![0.0f64; bytes.len().div_ceil(8)];
-        as_bytes_mut(&mut doubles)[..bytes.len()].copy_from_slice(bytes);
-        Self::parse_doubles(&Arc::new(doubles), bytes.len(), path)
+        Self::parse_buffer(&Arc::new(KernelBytes::copied(bytes)), path)
     }
 
-    /// Parses a kernel held as native-endian doubles (`len` bytes of file).
-    fn parse_doubles(buf: &Arc<Vec<f64>>, len: usize, path: &Path) -> Result<Self, EphemerisError> {
-        let bytes = &as_bytes(buf)[..len];
+    /// Parses a kernel's bytes, which its Chebyshev segments keep referring to.
+    fn parse_buffer(buf: &Arc<KernelBytes>, path: &Path) -> Result<Self, EphemerisError> {
+        let (bytes, doubles) = (buf.bytes(), buf.doubles());
+        let len = bytes.len();
         // anise's DAF reader is careful, but a crafted file must never take the
         // process down: contain any panic as an error. It copies what it is
         // given, so it gets the records up to the last summary and name
@@ -340,7 +339,7 @@ impl SpkKernel {
             if a < 1 || b < a || (b as usize) * 8 > len {
                 return Err(kernel_err(path, format!("segment {k} (target {}) points outside the file (doubles {a}..{b}, file {len} bytes): truncated?", s.target_id)));
             }
-            let (first, raw) = (a as usize - 1, &buf[a as usize - 1..b as usize]);
+            let (first, raw) = (a as usize - 1, &doubles[a as usize - 1..b as usize]);
             if !s.start_epoch_et_s.is_finite() || !s.end_epoch_et_s.is_finite() || s.end_epoch_et_s < s.start_epoch_et_s {
                 return Err(kernel_err(path, format!("segment {k} (target {}) has a bad coverage", s.target_id)));
             }
@@ -402,49 +401,86 @@ fn daf_summary_extent(bytes: &[u8]) -> Option<usize> {
     None
 }
 
-/// Reads a file into native-endian doubles (the last one zero-padded), with
-/// its length in bytes and its stamp for [`crate::io::digest::remember`].
-fn read_doubles(path: &Path) -> std::io::Result<(Vec<f64>, usize, Option<crate::io::digest::Stamp>)> {
-    use std::io::Read;
-    let before = crate::io::digest::stamp(path);
-    let mut f = std::fs::File::open(path)?;
-    let hint = f.metadata().map(|m| m.len() as usize).unwrap_or(0);
-    let mut doubles = vec![0.0f64; hint.div_ceil(8)];
-    let mut len = 0;
-    loop {
-        if len == doubles.len() * 8 {
-            doubles.resize(doubles.len() + 8192, 0.0);
-        }
-        let n = f.read(&mut as_bytes_mut(&mut doubles)[len..])?;
-        if n == 0 {
-            break;
-        }
-        len += n;
+/// The bytes of a kernel, shared by its Chebyshev segments.
+///
+/// A kernel file is memory-mapped, as anise's own loader does: the page
+/// cache is used in place, with no copy and no fresh memory to fault in
+/// (reading DE421 into a buffer cost ≈ 20–40 ms of page faults on the
+/// benchmark machine). As with any mapping, a file truncated by another
+/// process while lapse runs ends the process (SIGBUS); replace kernels by
+/// renaming a new file into place, not by rewriting them.
+pub(crate) enum KernelBytes {
+    /// A mapped file (page-aligned, so its doubles are aligned).
+    Mapped(memmap2::Mmap),
+    /// Doubles copied from memory (the last one zero-padded) and the byte length.
+    Owned(Vec<f64>, usize),
+}
+
+impl KernelBytes {
+    /// Maps a file, with its stamp for [`crate::io::digest::remember`]
+    /// (`None` when the file changed around the mapping).
+    fn map(path: &Path) -> std::io::Result<(Self, Option<crate::io::digest::Stamp>)> {
+        let before = crate::io::digest::stamp(path);
+        let f = std::fs::File::open(path)?;
+        // SAFETY: read-only mapping of a file we do not modify; see the type's
+        // note on files truncated by others meanwhile.
+        let buf = if f.metadata()?.len() >= 8 {
+            Self::Mapped(unsafe { memmap2::Mmap::map(&f)? })
+        } else {
+            Self::copied(&std::fs::read(path)?)
+        };
+        let len = buf.bytes().len() as u64;
+        let st = before.filter(|st| st.0 == len && crate::io::digest::stamp(path).as_ref() == Some(st));
+        Ok((buf, st))
     }
-    doubles.truncate(len.div_ceil(8));
-    let st = before.filter(|st| st.0 == len as u64 && crate::io::digest::stamp(path).as_ref() == Some(st));
-    Ok((doubles, len, st))
+
+    fn copied(bytes: &[u8]) -> Self {
+        let mut doubles = vec![0.0f64; bytes.len().div_ceil(8)];
+        // SAFETY: u8 has alignment 1, the byte length is the doubles' own,
+        // and any bytes written form valid f64 values.
+        let dst = unsafe { std::slice::from_raw_parts_mut(doubles.as_mut_ptr().cast::<u8>(), doubles.len() * 8) };
+        dst[..bytes.len()].copy_from_slice(bytes);
+        Self::Owned(doubles, bytes.len())
+    }
+
+    fn bytes(&self) -> &[u8] {
+        match self {
+            Self::Mapped(m) => m,
+            // SAFETY: as in `copied`.
+            Self::Owned(d, len) => {
+                let all = unsafe { std::slice::from_raw_parts(d.as_ptr().cast::<u8>(), d.len() * 8) };
+                &all[..*len]
+            }
+        }
+    }
+
+    /// The whole doubles of the file, native-endian (a trailing partial
+    /// double left out).
+    #[inline]
+    fn doubles(&self) -> &[f64] {
+        match self {
+            // SAFETY: a mapping starts on a page boundary (aligned for f64),
+            // is valid for its length, and every bit pattern is an f64.
+            Self::Mapped(m) => unsafe { std::slice::from_raw_parts(m.as_ptr().cast::<f64>(), m.len() / 8) },
+            Self::Owned(d, len) => &d[..len / 8],
+        }
+    }
 }
 
-/// The bytes of a slice of doubles (native endianness).
-fn as_bytes(d: &[f64]) -> &[u8] {
-    // SAFETY: u8 has alignment 1 and the byte length is exactly the doubles'.
-    unsafe { std::slice::from_raw_parts(d.as_ptr().cast::<u8>(), std::mem::size_of_val(d)) }
-}
-
-/// The bytes of a slice of doubles, writable: every bit pattern is a valid f64.
-fn as_bytes_mut(d: &mut [f64]) -> &mut [u8] {
-    // SAFETY: as `as_bytes`; any bytes written form valid f64 values.
-    unsafe { std::slice::from_raw_parts_mut(d.as_mut_ptr().cast::<u8>(), std::mem::size_of_val(d)) }
+impl std::fmt::Debug for KernelBytes {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        let kind = if matches!(self, Self::Mapped(_)) { "mapped" } else { "owned" };
+        write!(f, "KernelBytes({kind}, {} bytes)", self.bytes().len())
+    }
 }
 
 /// Types 2/3 in place: the records stay in the kernel's buffer `buf`,
 /// whose doubles `first .. first + n_doubles` are the segment.
-fn parse_chebyshev(buf: &Arc<Vec<f64>>, first: usize, n_doubles: usize, with_velocity: bool) -> Result<ChebyshevData, String> {
+fn parse_chebyshev(buf: &Arc<KernelBytes>, first: usize, n_doubles: usize, with_velocity: bool) -> Result<ChebyshevData, String> {
     if n_doubles < 4 + 5 {
         return Err(format!("only {n_doubles} doubles"));
     }
-    let seg = &buf[first..first + n_doubles];
+    let seg = &buf.doubles()[first..first + n_doubles];
     let [init_s, interval_s, rsize, n] = [seg[n_doubles - 4], seg[n_doubles - 3], seg[n_doubles - 2], seg[n_doubles - 1]];
     if !init_s.is_finite() || !(interval_s.is_finite() && interval_s > 0.0) {
         return Err(format!("bad directory: init {init_s}, interval {interval_s}"));
@@ -788,7 +824,7 @@ mod tests {
         buf.extend(rec);
         buf.extend([5.0, 10.0, rec.len() as f64, 1.0]);
         buf.extend([f64::NAN; 3]); // and after it
-        let c = parse_chebyshev(&Arc::new(buf), 7, rec.len() + 4, false).unwrap();
+        let c = parse_chebyshev(&Arc::new(KernelBytes::Owned(buf.clone(), buf.len() * 8)), 7, rec.len() + 4, false).unwrap();
         let seg = Segment { target: 1, center: 0, frame: 1, spk_type: 2, start_s: 5.0, end_s: 15.0, data: SegmentData::Chebyshev(c) };
         assert_eq!(seg.position(&TdbSeconds::new(12, 0.5)), Some([4.0, -1.0, 0.25]));
     }
@@ -835,6 +871,6 @@ mod tests {
 
     /// A type 2 segment made of these doubles alone.
     fn cheb(d: &[f64]) -> Result<ChebyshevData, String> {
-        parse_chebyshev(&Arc::new(d.to_vec()), 0, d.len(), false)
+        parse_chebyshev(&Arc::new(KernelBytes::Owned(d.to_vec(), d.len() * 8)), 0, d.len(), false)
     }
 }

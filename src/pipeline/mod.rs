@@ -505,15 +505,24 @@ pub fn input_rows(pipeline: &Path, input: Option<&Path>) -> Option<usize> {
 /// adds each finished chunk's size to `progress`.
 pub fn par_map_chunks<T: Sync, R: Send>(rows: &[T], chunk_rows: usize, progress: Option<&std::sync::atomic::AtomicUsize>, f: impl Fn(&T) -> R + Sync) -> Vec<R> {
     use rayon::prelude::*;
-    rows.par_chunks(chunk_rows.max(1))
-        .flat_map_iter(|c| {
-            let out: Vec<R> = c.iter().map(&f).collect();
-            if let Some(p) = progress {
-                p.fetch_add(c.len(), std::sync::atomic::Ordering::Relaxed);
-            }
-            out
-        })
-        .collect()
+    let k = chunk_rows.max(1);
+    // Each chunk writes its results straight into its place in the output
+    // (no per-chunk vectors gathered and copied afterwards).
+    let mut out: Vec<R> = Vec::with_capacity(rows.len());
+    rows.par_chunks(k).zip(out.spare_capacity_mut()[..rows.len()].par_chunks_mut(k)).for_each(|(c, slots)| {
+        for (x, slot) in c.iter().zip(slots.iter_mut()) {
+            slot.write(f(x));
+        }
+        if let Some(p) = progress {
+            p.fetch_add(c.len(), std::sync::atomic::Ordering::Relaxed);
+        }
+    });
+    // SAFETY: the zip above pairs every row with its own slot (equal chunk
+    // sizes over equal lengths), and for_each returns only after every chunk
+    // was written; a panic in `f` propagates before this point (the written
+    // results then leak, which is safe).
+    unsafe { out.set_len(rows.len()) };
+    out
 }
 
 /// Duplicate-id detection over a table read in slices, in bounded memory:
