@@ -97,7 +97,7 @@ impl CipGrid {
         if !(u >= (CIP_PAD - 1) as f64) {
             return None;
         }
-        let i = u.floor() as usize;
+        let i = u as usize; // u ≥ 1 here: truncation is the floor
         if i + CIP_PAD >= self.nodes.len() {
             return None;
         }
@@ -148,7 +148,7 @@ fn m3(a: &[[f64; 3]; 3]) -> Matrix3<f64> {
 /// IERS Conventions 2010, eq. 5.1, 5.3, 5.10, 5.15; SOFA `iauC2tcio`.
 pub fn itrs_to_gcrs(tt_jd: (f64, f64), ut1_jd: (f64, f64), cip: CipXys, eop: &EopValues) -> TerrestrialToCelestial {
     let rc2i = m3(&sofars::pnp::c2ixys(cip.x_rad + eop.dx_rad, cip.y_rad + eop.dy_rad, cip.s_rad));
-    let era = sofars::erst::era00(ut1_jd.0, ut1_jd.1);
+    let era = era_rad(ut1_jd);
     let sp = sofars::pnp::sp00(tt_jd.0, tt_jd.1);
     let rpom = m3(&sofars::pnp::pom00(eop.x_p_rad, eop.y_p_rad, sp));
     let (s, c) = era.sin_cos();
@@ -158,6 +158,35 @@ pub fn itrs_to_gcrs(tt_jd: (f64, f64), ut1_jd: (f64, f64), cip: CipXys, eop: &Eo
     let gcrs_to_itrs = rpom * r3 * rc2i;
     let rate = (rpom * dr3 * rc2i).transpose();
     TerrestrialToCelestial { matrix: gcrs_to_itrs.transpose(), rate_per_s: rate }
+}
+
+/// Earth rotation angle (rad, in [0, 2π)) at a two-part UT1 Julian Date.
+///
+/// The operations of ERFA/SOFA `era00` (as in `sofars::erst::era00`) in the
+/// same order, except that the fractional days are taken as `x − trunc(x)`
+/// instead of `fmod(x, 1)`: both are exact, so the result is bit-identical
+/// (unit test), and on baseline x86-64 `fmod` of a 2.4e6-day Julian Date is a
+/// slow software loop called once per station state.
+///
+/// # Accuracy
+/// That of the IAU 2000 definition; bit-identical to `era00`.
+///
+/// # References
+/// IERS Conventions 2010, eq. 5.15 (ERA = 2π(0.7790572732640 +
+/// 1.00273781191135448 T_u)); SOFA `iauEra00`.
+pub fn era_rad(ut1_jd: (f64, f64)) -> f64 {
+    const DJ00: f64 = 2_451_545.0;
+    const D2PI: f64 = std::f64::consts::TAU;
+    let (d1, d2) = if ut1_jd.0 < ut1_jd.1 { ut1_jd } else { (ut1_jd.1, ut1_jd.0) };
+    let t = d1 + (d2 - DJ00);
+    let frac = |x: f64| if x.abs() < 4.5e15 { x - (x as i64) as f64 } else { x % 1.0 };
+    let f = frac(d1) + frac(d2);
+    // iauAnp: into [0, 2π).
+    let mut w = (D2PI * (f + 0.7790572732640 + 0.00273781191135448 * t)) % D2PI;
+    if w < 0.0 {
+        w += D2PI;
+    }
+    w
 }
 
 impl TerrestrialToCelestial {
@@ -199,6 +228,27 @@ mod tests {
         // The geocentre stays put.
         let (p0, v0) = r.apply(&Vector3::zeros());
         assert_eq!((p0.norm(), v0.norm()), (0.0, 0.0));
+    }
+
+    #[test]
+    fn era_is_bit_identical_to_era00() {
+        // Both orders of the parts, negative and positive fractions, epochs
+        // 1900–2100 (ERFA/SOFA iauEra00 through sofars 0.6.3).
+        let mut x = 0x2545_f491_4f6c_dd1du64;
+        for k in 0..200_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            let mjd = 15_000.0 + (x >> 11) as f64 / (1u64 << 53) as f64 * 73_000.0;
+            let day = mjd.floor();
+            let parts = match k % 4 {
+                0 => (2_400_000.5 + day, mjd - day),
+                1 => (mjd - day, 2_400_000.5 + day),
+                2 => (2_400_000.5 + mjd, 0.0),
+                _ => (2_451_545.0, mjd - 51_544.5),
+            };
+            assert_eq!(era_rad(parts).to_bits(), sofars::erst::era00(parts.0, parts.1).to_bits(), "{parts:?}");
+        }
     }
 
     #[test]

@@ -38,6 +38,11 @@ pub struct TdbSeconds {
 impl TdbSeconds {
     /// From whole seconds and any fraction (renormalised to [0, 1)).
     pub fn new(whole_s: i64, frac_s: f64) -> Self {
+        // Already in [0, 1) (the usual case): no floor, which baseline x86-64
+        // makes a library call; a −0.0 goes through floor to keep its sign.
+        if frac_s > 0.0 && frac_s < 1.0 {
+            return Self { whole_s, frac_s };
+        }
         let fl = frac_s.floor();
         Self { whole_s: whole_s + fl as i64, frac_s: frac_s - fl }
     }
@@ -164,7 +169,8 @@ impl ChebyshevData {
     /// span) and the normalised time τ = (t − mid)/radius within it.
     fn record_at(&self, t: &TdbSeconds) -> (&[f64], f64) {
         let since_init = t.minus_f64_s(self.init_s);
-        let idx = ((since_init / self.interval_s).floor().max(0.0) as usize).min(self.n_records - 1);
+        // floor then clamp at 0 equals clamp then truncate (NaN → 0 both ways).
+        let idx = ((since_init / self.interval_s).max(0.0) as usize).min(self.n_records - 1);
         let at = self.first + idx * self.record_len;
         let rec = &self.records.doubles()[at..at + self.record_len];
         (rec, t.minus_f64_s(rec[0]) / rec[1])
