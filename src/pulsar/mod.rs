@@ -239,6 +239,24 @@ impl PulsarContext {
 }
 
 
+/// Weighted mean of (residual, σ) pairs (weights 1/σ²; 0 without weight),
+/// and the sum of the weights.
+fn weighted_mean_and_weight(pairs: impl Iterator<Item = (f64, f64)>) -> (f64, f64) {
+    let (mut sw, mut swr) = (0.0, 0.0);
+    for (r, s) in pairs {
+        let w = 1.0 / (s * s);
+        sw += w;
+        swr += w * r;
+    }
+    (if sw > 0.0 { swr / sw } else { 0.0 }, sw)
+}
+
+/// Weighted mean of residuals (s) given as (residual, σ) pairs: the mean
+/// [`residual_summary`] reports, in one pass without collecting them.
+pub fn weighted_mean(pairs: impl Iterator<Item = (f64, f64)>) -> f64 {
+    weighted_mean_and_weight(pairs).0
+}
+
 /// Weighted statistics of residuals.
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct ResidualSummary {
@@ -251,13 +269,7 @@ pub struct ResidualSummary {
 /// Weighted mean, weighted RMS and χ² of residuals with σ (s); the RMS and χ²
 /// are taken about the weighted mean when `about_mean`.
 pub fn residual_summary(residual_s: &[f64], sigma_s: &[f64], about_mean: bool) -> ResidualSummary {
-    let (mut sw, mut swr) = (0.0, 0.0);
-    for (r, s) in residual_s.iter().zip(sigma_s) {
-        let w = 1.0 / (s * s);
-        sw += w;
-        swr += w * r;
-    }
-    let mean = if sw > 0.0 { swr / sw } else { 0.0 };
+    let (mean, sw) = weighted_mean_and_weight(residual_s.iter().copied().zip(sigma_s.iter().copied()));
     let c = if about_mean { mean } else { 0.0 };
     let (mut swr2, mut chi2) = (0.0, 0.0);
     for (r, s) in residual_s.iter().zip(sigma_s) {
