@@ -219,26 +219,27 @@ impl Segment {
             tk[k] = 2.0 * tau * tk[k - 1] - tk[k - 2];
             dk[k] = 2.0 * tk[k - 1] + 2.0 * tau * dk[k - 1] - dk[k - 2];
         }
-        let mut s = StateKm::default();
-        for axis in 0..3 {
-            let coef = &rec[2 + axis * n..2 + (axis + 1) * n];
-            let mut p = 0.0;
-            let mut v = 0.0;
-            // Sum from the highest degree down (smallest terms first).
+        // The three axes advance together (three independent sums, so the
+        // loop runs at the adds' throughput, not their latency); each axis
+        // keeps its own order of operations, from the highest degree down
+        // (smallest terms first): bit-identical to one axis at a time.
+        let (mut p, mut v) = ([0.0f64; 3], [0.0f64; 3]);
+        for k in (0..n).rev() {
+            for axis in 0..3 {
+                let coef = rec[2 + axis * n + k];
+                p[axis] += coef * tk[k];
+                v[axis] += coef * dk[k];
+            }
+        }
+        let mut s = StateKm { position_km: p, velocity_km_s: v.map(|x| x / radius) };
+        if c.with_velocity {
+            let mut vv = [0.0f64; 3];
             for k in (0..n).rev() {
-                p += coef[k] * tk[k];
-                v += coef[k] * dk[k];
-            }
-            s.position_km[axis] = p;
-            s.velocity_km_s[axis] = v / radius;
-            if c.with_velocity {
-                let vcoef = &rec[2 + (3 + axis) * n..2 + (4 + axis) * n];
-                let mut vv = 0.0;
-                for k in (0..n).rev() {
-                    vv += vcoef[k] * tk[k];
+                for (axis, acc) in vv.iter_mut().enumerate() {
+                    *acc += rec[2 + (3 + axis) * n + k] * tk[k];
                 }
-                s.velocity_km_s[axis] = vv;
             }
+            s.velocity_km_s = vv;
         }
         Some(s)
     }
@@ -270,14 +271,12 @@ impl Segment {
         for k in 2..n {
             tk[k] = 2.0 * tau * tk[k - 1] - tk[k - 2];
         }
+        // Axes together, each in its own order (see `evaluate`).
         let mut out = [0.0; 3];
-        for (axis, o) in out.iter_mut().enumerate() {
-            let coef = &rec[2 + axis * n..2 + (axis + 1) * n];
-            let mut p = 0.0;
-            for k in (0..n).rev() {
-                p += coef[k] * tk[k];
+        for k in (0..n).rev() {
+            for (axis, o) in out.iter_mut().enumerate() {
+                *o += rec[2 + axis * n + k] * tk[k];
             }
-            *o = p;
         }
         Some(out)
     }
