@@ -7,6 +7,7 @@
 //! Reading, "Loading Files / Precedence"). States are chained through the
 //! segments' centres down to the solar-system barycentre (NAIF 0).
 
+pub mod grid;
 pub mod naif;
 pub mod oem;
 mod spk;
@@ -50,6 +51,9 @@ pub enum EphemerisError {
 #[derive(Clone, Debug, Default)]
 pub struct Ephemeris {
     kernels: Vec<SpkKernel>,
+    /// Position grids of Shapiro bodies for the batch being computed
+    /// ([`Self::cover_body_grids`]; see [`grid`]).
+    grids: Vec<grid::PositionGrid>,
 }
 
 /// Calendar TDB text of an epoch (for messages).
@@ -85,17 +89,63 @@ impl Ephemeris {
             tracing::debug!(path = %p.as_ref().display(), segments = k.segments.len(), "loaded SPK kernel");
             kernels.push(k);
         }
-        Ok(Self { kernels })
+        Ok(Self { kernels, grids: Vec::new() })
     }
 
     /// Adds a kernel (taking precedence over those loaded before).
     pub fn add_kernel(&mut self, k: SpkKernel) {
         self.kernels.push(k);
+        // A later kernel may take precedence for a gridded body.
+        self.grids.clear();
     }
 
     /// From already parsed kernels.
     pub fn from_kernels(kernels: Vec<SpkKernel>) -> Self {
-        Self { kernels }
+        Self { kernels, grids: Vec::new() }
+    }
+
+    /// Makes position grids of `ids` cover TDB seconds `first_s ..= last_s`
+    /// past J2000, building those that fall short (nodes at fixed epochs:
+    /// values do not depend on the span). A body whose grid cannot be built
+    /// (a node outside the kernels) keeps being evaluated directly.
+    pub fn cover_body_grids(&mut self, ids: &[i32], first_s: i64, last_s: i64) {
+        for &id in ids {
+            if self.grids.iter().any(|g| g.id == id && g.covers(first_s, last_s)) {
+                continue;
+            }
+            self.grids.retain(|g| g.id != id);
+            if let Ok(g) = grid::PositionGrid::new(self, id, first_s, last_s) {
+                self.grids.push(g);
+            }
+        }
+    }
+
+    /// [`Self::cover_body_grids`] for a batch over UTC days (MJD): from two
+    /// days before the first (retarded epochs of the bodies, light time to
+    /// a spacecraft) to a day after the last. Days outside MJD 40 000 –
+    /// 100 000 are skipped (their rows are rejected later); epochs outside
+    /// the grids are evaluated directly.
+    pub fn cover_body_grids_utc_days(&mut self, ids: &[i32], days_mjd_utc: impl IntoIterator<Item = i64>) {
+        let (lo, hi) = days_mjd_utc.into_iter().filter(|d| (40_000..100_000).contains(d)).fold((i64::MAX, i64::MIN), |(lo, hi), d| (lo.min(d), hi.max(d)));
+        if lo <= hi && !ids.is_empty() {
+            // MJD 51 544.5 is J2000; TDB − UTC < 70 s, inside the padding.
+            let j2000_s = |mjd: i64| (mjd - 51_544) * 86_400 - 43_200;
+            self.cover_body_grids(ids, j2000_s(lo - 2), j2000_s(hi + 2));
+        }
+    }
+
+    /// Barycentric position (km) of a Shapiro body: from its grid when one
+    /// covers `t`, else from the kernels. For Shapiro delays only (see
+    /// [`grid`] for the bound: ≤ 1e-19 s of delay).
+    ///
+    /// # Errors
+    /// As [`Self::position_ssb_km`].
+    #[inline]
+    pub fn shapiro_position_ssb_km(&self, target: i32, t: &TdbSeconds) -> Result<[f64; 3], EphemerisError> {
+        match self.grids.iter().find(|g| g.id == target).and_then(|g| g.position_km(t)) {
+            Some(p) => Ok(p),
+            None => self.position_ssb_km(target, t),
+        }
     }
 
     /// The loaded kernels.

@@ -61,7 +61,7 @@ impl ShapiroSet {
         let mut out = Vec::with_capacity(bodies.len());
         for b in bodies {
             let p = |t: &TdbSeconds| -> Result<Vector3<f64>, String> {
-                eph.position_ssb_km(b.naif_id, t).map(|p| Vector3::from(p) * 1e3).map_err(|e| format!("geometry unavailable: {e}"))
+                eph.shapiro_position_ssb_km(b.naif_id, t).map(|p| Vector3::from(p) * 1e3).map_err(|e| format!("geometry unavailable: {e}"))
             };
             let x = p(t_rx)?;
             let back_s = (x_rx_m - x).norm() / C_M_S;

@@ -173,7 +173,7 @@ impl PulsarContext {
         let mut shapiro_s = 0.0;
         for (k, b) in self.shapiro.iter().enumerate() {
             let body = |tt: &TdbSeconds| -> Result<Vector3<f64>, String> {
-                let p = self.ephemeris.position_ssb_km(b.naif_id, tt).map_err(|e| format!("geometry unavailable: {e}"))?;
+                let p = self.ephemeris.shapiro_position_ssb_km(b.naif_id, tt).map_err(|e| format!("geometry unavailable: {e}"))?;
                 Ok(Vector3::from(p) * 1e3)
             };
             // The Sun at the reception time; planets when the signal passes
