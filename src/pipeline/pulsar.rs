@@ -447,13 +447,20 @@ struct BatchFrames {
     clock_extrapolated: usize,
 }
 
-/// σ (s) of the accepted rows, in input order.
-fn accepted_sigma_s(results: &[Result<ArrivalResult, String>], input: &PulsarInput) -> Vec<f64> {
-    // (pulsar_frames gathers the same values together with the residuals.)
-    results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect()
+/// σ (s) and raw residual (s) of the accepted rows, in input order, from one
+/// read of the (large) results.
+fn accepted_sigma_and_residual_s(results: &[Result<ArrivalResult, String>], input: &PulsarInput) -> (Vec<f64>, Vec<f64>) {
+    let (mut sigma_s, mut raw) = (Vec::with_capacity(results.len()), Vec::with_capacity(results.len()));
+    for (r, s) in results.iter().zip(&input.sigma_us) {
+        if let Ok(g) = r {
+            sigma_s.push(s.unwrap_or(1.0) * 1e-6);
+            raw.push(g.residual_s);
+        }
+    }
+    (sigma_s, raw)
 }
 
-/// The frames of one batch; `sigma_s` from [`accepted_sigma_s`].
+/// The frames of one batch; `sigma_s` from [`accepted_sigma_and_residual_s`].
 fn batch_frames(lp: &LoadedPulsar, df: &DataFrame, input: &PulsarInput, input_path: &Path, results: &[Result<ArrivalResult, String>], sigma_s: Vec<f64>, offset: f64) -> Result<BatchFrames, PipelineError> {
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<&ArrivalResult> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
@@ -636,14 +643,7 @@ fn pulsar_frames<'a>(lp: &mut LoadedPulsar, df: &'a DataFrame, source: &Path) ->
     let results = compute_pulsar(lp, &input);
     let t2 = std::time::Instant::now();
     // Residuals: optional weighted-mean removal over the accepted rows.
-    // One read of the (large) results for σ and the raw residuals.
-    let (mut sigma_s, mut raw) = (Vec::with_capacity(results.len()), Vec::with_capacity(results.len()));
-    for (r, s) in results.iter().zip(&input.sigma_us) {
-        if let Ok(g) = r {
-            sigma_s.push(s.unwrap_or(1.0) * 1e-6);
-            raw.push(g.residual_s);
-        }
-    }
+    let (sigma_s, raw) = accepted_sigma_and_residual_s(&results, &input);
     let offset = if lp.subtract_weighted_mean { weighted_mean(raw.iter().copied().zip(sigma_s.iter().copied())) } else { 0.0 };
     drop(raw);
     let f = batch_frames(lp, df, &input, source, &results, sigma_s, offset)?;
@@ -727,7 +727,7 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
         let input = read_pulsar_input(&df, input_path)?;
         ids.check(&input.obs_id, offset_row, input_path)?;
         let results = compute_pulsar(lp, &input);
-        let mut f = batch_frames(lp, &df, &input, input_path, &results, accepted_sigma_s(&results, &input), 0.0)?;
+        let mut f = batch_frames(lp, &df, &input, input_path, &results, accepted_sigma_and_residual_s(&results, &input).0, 0.0)?;
         if w_out.is_none() {
             let mk = |p: &Path, schema: &Schema| -> Result<polars::io::parquet::write::BatchedWriter<std::fs::File>, PipelineError> {
                 let file = std::fs::File::create(p).map_err(|e| crate::io::IoError::Write { path: p.into(), message: e.to_string() })?;
