@@ -638,9 +638,11 @@ fn partition_plots<S: AsRef<str>>(output_path: &Path, sites: &[S], bat_mjd: &[f6
 fn pulsar_frames<'a>(lp: &mut LoadedPulsar, df: &'a DataFrame, source: &Path) -> Result<(PulsarInput<'a>, BatchFrames, f64), PipelineError> {
     let t0 = std::time::Instant::now();
     let input = read_pulsar_input(df, source)?;
-    check_unique_ids(&input.obs_id, source)?;
     let t1 = std::time::Instant::now();
-    let results = compute_pulsar(lp, &input);
+    // The id check (one thread) runs beside the computation: a duplicate
+    // fails the batch all the same, only after the work.
+    let (unique, results) = rayon::join(|| check_unique_ids(&input.obs_id, source), || compute_pulsar(lp, &input));
+    unique?;
     let t2 = std::time::Instant::now();
     // Residuals: optional weighted-mean removal over the accepted rows.
     let (sigma_s, raw) = accepted_sigma_and_residual_s(&results, &input);
