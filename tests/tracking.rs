@@ -326,7 +326,7 @@ fn demo_residuals_are_white_at_the_injected_noise() {
 
 #[test]
 fn fast_path_agrees_with_direct_light_time_solution() {
-    // Issue requirement (#7): the batch path — CIP, TDB − TT and Shapiro-body grids,
+    // Issue requirement (#7): the batch path — CIP, TDB − TT, Shapiro-body and Earth grids,
     // anchored iterations, one-pass station states with a hinted observer
     // term in the up leg — against the direct path: the series, plain
     // fixed-point iteration from a zero light time, and two-pass station
@@ -349,6 +349,7 @@ fn fast_path_agrees_with_direct_light_time_solution() {
     fast.earth.cover_utc_days(days.iter().map(|d| *d as i64));
     let ids: Vec<i32> = fast.shapiro.iter().map(|b| b.naif_id).collect();
     fast.ephemeris.cover_body_grids_utc_days(&ids, days.iter().map(|d| *d as i64));
+    fast.ephemeris.cover_earth_grid_utc_days(days.iter().map(|d| *d as i64));
     let spacecraft = |t: &Epoch| state(&direct.ephemeris, direct.target, t);
     let (mut worst_t, mut worst_x, mut n) = (0.0f64, 0.0f64, 0);
     for i in (0..obs.height()).step_by(3) {

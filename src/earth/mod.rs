@@ -199,7 +199,7 @@ impl EarthModel {
                 .map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })
         };
         let geo_tdb = tdb_at(0.0)?;
-        let earth_geo = eph.state_ssb(399, &TdbSeconds::from_epoch(&geo_tdb)?)?;
+        let earth_geo = eph.earth_state_ssb(&TdbSeconds::from_epoch(&geo_tdb)?)?;
         let v_e = Vector3::from(earth_geo.velocity_km_s) * 1e3;
         let observer_term_s = v_e.dot(&x_gcrs) / (C_M_S * C_M_S);
         let tdb = tdb_at(observer_term_s)?;

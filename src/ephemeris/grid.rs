@@ -1,11 +1,12 @@
-//! Barycentric positions of Shapiro bodies on a uniform TDB grid: cubic
-//! Hermite interpolation between SPK states (position and velocity) at
-//! fixed nodes, for batches that need many positions of the same bodies.
+//! Barycentric states of bodies on a uniform TDB grid: cubic Hermite
+//! interpolation between SPK states (position and velocity) at fixed nodes,
+//! for batches that need many states of the same bodies: the Shapiro bodies'
+//! positions (step [`BODY_GRID_STEP_S`]) and, for tracking batches, the
+//! Earth's state (step [`EARTH_GRID_STEP_S`]).
 //!
-//! Nodes sit at whole multiples of [`BODY_GRID_STEP_S`] seconds past J2000
-//! TDB, so a value does not depend on the span a batch asked for (results
-//! are the same whatever the partitioning). Only the Shapiro delays use these
-//! positions, never the observer, Earth or spacecraft states.
+//! Nodes sit at whole multiples of the step in seconds past J2000 TDB, so a
+//! value does not depend on the span a batch asked for (results are the same
+//! whatever the partitioning).
 //!
 //! # Accuracy
 //! Cubic Hermite on a step h errs by at most h⁴/384 · max|x⁗| (the
@@ -18,68 +19,106 @@
 //! b ≥ the body's radius: Mercury ≤ 1.7e-15 s, the Moon and Venus ≤ 1.3e-16 s,
 //! every other body ≤ 1e-17 s — far inside the 1 ps the fast path may differ
 //! from the direct one (issue #7; `tests/pulsar.rs`, `tests/tracking.rs`).
+//! The Earth at h = 30 min: measured ≤ 6.4e-5 m in position and ≤ 1e-7 m/s
+//! in velocity (unit test `earth_grid_matches_the_kernel`). That is the f64
+//! resolution of a barycentric position in km near 1 au (one ulp is 3e-5 m;
+//! the kernel's own sum of two segments rounds as much) rather than the
+//! interpolation (≈ 6e-6 m by the bound above with the Moon's 4.7e6 m, 27.3 d
+//! wobble: a 15-min grid measured no better); velocities are limited by the
+//! rounding of the node difference over h. 6.4e-5 m is 2e-13 s of light time.
 //!
 //! # References
 //! Burden & Faires, *Numerical Analysis*, sec. 3.4 (Hermite interpolation
 //! and its error term; section number from memory). NAIF SPK Required
 //! Reading for the states at the nodes.
 
-use super::{Ephemeris, EphemerisError, TdbSeconds};
+use super::{Ephemeris, EphemerisError, StateKm, TdbSeconds};
 
-/// Grid step, TDB seconds (half a day).
+/// Grid step of the Shapiro bodies, TDB seconds (half a day).
 pub const BODY_GRID_STEP_S: i64 = 43_200;
+/// Grid step of the Earth, TDB seconds (30 minutes).
+pub const EARTH_GRID_STEP_S: i64 = 1_800;
 
 /// One body's positions (km) and velocities (km/s) at the grid nodes.
 #[derive(Clone, Debug)]
-pub struct PositionGrid {
+pub struct BodyGrid {
     /// NAIF id of the body.
     pub id: i32,
+    /// Node spacing, TDB seconds.
+    step_s: i64,
     /// Index of the first node (node k at k · step seconds past J2000 TDB).
     first_node: i64,
     /// [x, y, z, vx, vy, vz] per node.
     nodes: Vec<[f64; 6]>,
 }
 
-impl PositionGrid {
-    /// The grid of body `id` with nodes covering TDB seconds
-    /// `first_s ..= last_s` past J2000 (one node beyond each end).
+impl BodyGrid {
+    /// The grid of body `id` with step `step_s` (s) and nodes covering TDB
+    /// seconds `first_s ..= last_s` past J2000 (one node beyond each end);
+    /// the nodes are evaluated in parallel.
     ///
     /// # Errors
     /// The ephemeris's, when a node is outside its coverage.
-    pub fn new(eph: &Ephemeris, id: i32, first_s: i64, last_s: i64) -> Result<Self, EphemerisError> {
-        let first_node = first_s.div_euclid(BODY_GRID_STEP_S);
-        let last_node = last_s.div_euclid(BODY_GRID_STEP_S) + 1;
+    pub fn new(eph: &Ephemeris, id: i32, step_s: i64, first_s: i64, last_s: i64) -> Result<Self, EphemerisError> {
+        use rayon::prelude::*;
+        let first_node = first_s.div_euclid(step_s);
+        let last_node = last_s.div_euclid(step_s) + 1;
         let nodes = (first_node..=last_node)
+            .into_par_iter()
             .map(|k| {
-                let s = eph.state_ssb(id, &TdbSeconds::new(k * BODY_GRID_STEP_S, 0.0))?;
+                let s = eph.state_ssb(id, &TdbSeconds::new(k * step_s, 0.0))?;
                 let (p, v) = (s.position_km, s.velocity_km_s);
                 Ok([p[0], p[1], p[2], v[0], v[1], v[2]])
             })
             .collect::<Result<Vec<_>, EphemerisError>>()?;
-        Ok(Self { id, first_node, nodes })
+        Ok(Self { id, step_s, first_node, nodes })
     }
 
     /// True when the grid answers at TDB seconds `first_s ..= last_s`.
     pub fn covers(&self, first_s: i64, last_s: i64) -> bool {
         let last_node = self.first_node + self.nodes.len() as i64 - 1;
-        first_s.div_euclid(BODY_GRID_STEP_S) >= self.first_node && last_s.div_euclid(BODY_GRID_STEP_S) < last_node
+        first_s.div_euclid(self.step_s) >= self.first_node && last_s.div_euclid(self.step_s) < last_node
+    }
+
+    /// The two nodes around `t` and the position u ∈ [0, 1) between them.
+    #[inline]
+    fn interval(&self, t: &TdbSeconds) -> Option<(&[f64; 6], &[f64; 6], f64)> {
+        let k = t.whole_s.div_euclid(self.step_s);
+        let i = usize::try_from(k - self.first_node).ok()?;
+        let (a, b) = (self.nodes.get(i)?, self.nodes.get(i + 1)?);
+        Some((a, b, (t.whole_s.rem_euclid(self.step_s) as f64 + t.frac_s) / self.step_s as f64))
     }
 
     /// Interpolated barycentric position (km) at `t`, or `None` outside the grid.
     #[inline]
     pub fn position_km(&self, t: &TdbSeconds) -> Option<[f64; 3]> {
-        let k = t.whole_s.div_euclid(BODY_GRID_STEP_S);
-        let i = usize::try_from(k - self.first_node).ok()?;
-        let (a, b) = (self.nodes.get(i)?, self.nodes.get(i + 1)?);
-        let h = BODY_GRID_STEP_S as f64;
-        let u = (t.whole_s.rem_euclid(BODY_GRID_STEP_S) as f64 + t.frac_s) / h;
+        let (a, b, u) = self.interval(t)?;
+        let h = self.step_s as f64;
         // Cubic Hermite basis on [0, 1].
         let (u2, u3) = (u * u, u * u * u);
-        let h00 = 2.0 * u3 - 3.0 * u2 + 1.0;
         let h10 = u3 - 2.0 * u2 + u;
         let h01 = -2.0 * u3 + 3.0 * u2;
         let h11 = u3 - u2;
-        Some(std::array::from_fn(|c| h00 * a[c] + h10 * h * a[3 + c] + h01 * b[c] + h11 * h * b[3 + c]))
+        // h00 = 1 − h01: the node value plus a small increment, so the sum
+        // rounds once at the scale of the position (≤ 0.5 ulp, 1.6e-5 m for
+        // 1 au in km) instead of accumulating four large terms.
+        Some(std::array::from_fn(|c| a[c] + (h01 * (b[c] - a[c]) + h * (h10 * a[3 + c] + h11 * b[3 + c]))))
+    }
+
+    /// Interpolated barycentric state (km, km/s) at `t`: the Hermite cubic
+    /// and its time derivative, or `None` outside the grid.
+    #[inline]
+    pub fn state_km(&self, t: &TdbSeconds) -> Option<StateKm> {
+        let (a, b, u) = self.interval(t)?;
+        let h = self.step_s as f64;
+        let (u2, u3) = (u * u, u * u * u);
+        let (h10, h01, h11) = (u3 - 2.0 * u2 + u, -2.0 * u3 + 3.0 * u2, u3 - u2);
+        // d/du of the basis (d00 = −d01); d/dt = (d/du) / h.
+        let (d10, d01, d11) = (3.0 * u2 - 4.0 * u + 1.0, -6.0 * u2 + 6.0 * u, 3.0 * u2 - 2.0 * u);
+        Some(StateKm {
+            position_km: std::array::from_fn(|c| a[c] + (h01 * (b[c] - a[c]) + h * (h10 * a[3 + c] + h11 * b[3 + c]))),
+            velocity_km_s: std::array::from_fn(|c| d01 * (b[c] - a[c]) / h + d10 * a[3 + c] + d11 * b[3 + c]),
+        })
     }
 }
 
@@ -99,7 +138,7 @@ mod tests {
         let (lo, hi) = (-315_576_000i64, 946_728_000i64);
         let mut x = 0x9e37_79b9_7f4a_7c15u64;
         for &(id, bound_m) in BOUNDS_M {
-            let g = PositionGrid::new(&eph, id, lo, hi).unwrap();
+            let g = BodyGrid::new(&eph, id, BODY_GRID_STEP_S, lo, hi).unwrap();
             assert!(g.covers(lo, hi));
             let mut worst_m = 0.0f64;
             for _ in 0..4000 {
@@ -119,10 +158,39 @@ mod tests {
     }
 
     #[test]
+    fn earth_grid_matches_the_kernel() {
+        // Bounds: position 1e-4 m (3.3e-13 s of light time), velocity
+        // 2e-7 m/s (7e-18 s in the observer term v_E·x/c²); measured maxima
+        // in the module docs.
+        const EARTH_POSITION_TOL_M: f64 = 1e-4;
+        const EARTH_VELOCITY_TOL_M_S: f64 = 2e-7;
+        let eph = Ephemeris::load(&[std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("data/de421.bsp")]).unwrap();
+        // Two years (2024–2025), 20 000 epochs.
+        let (lo, hi) = (757_339_200i64, 820_411_200i64);
+        let g = BodyGrid::new(&eph, 399, EARTH_GRID_STEP_S, lo, hi).unwrap();
+        let (mut wp, mut wv) = (0.0f64, 0.0f64);
+        let mut x = 0x2545_f491_4f6c_dd1du64;
+        for _ in 0..20_000 {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            let s = lo as f64 + (x >> 11) as f64 / (1u64 << 53) as f64 * (hi - lo) as f64;
+            let t = TdbSeconds::new(s.floor() as i64, s - s.floor());
+            let (a, b) = (g.state_km(&t).unwrap(), eph.state_ssb(399, &t).unwrap());
+            assert_eq!(Some(a.position_km), g.position_km(&t));
+            let d = |p: [f64; 3], q: [f64; 3]| (0..3).map(|c| (p[c] - q[c]) * 1e3).map(|d| d * d).sum::<f64>().sqrt();
+            wp = wp.max(d(a.position_km, b.position_km));
+            wv = wv.max(d(a.velocity_km_s, b.velocity_km_s));
+        }
+        eprintln!("Earth grid vs kernel: {wp:.3e} m, {wv:.3e} m/s");
+        assert!(wp <= EARTH_POSITION_TOL_M && wv <= EARTH_VELOCITY_TOL_M_S, "{wp} m, {wv} m/s");
+    }
+
+    #[test]
     fn nodes_are_exact_and_values_do_not_depend_on_the_span() {
         let eph = Ephemeris::load(&[std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("data/de421.bsp")]).unwrap();
-        let narrow = PositionGrid::new(&eph, 5, 700_000_000, 700_100_000).unwrap();
-        let wide = PositionGrid::new(&eph, 5, 699_000_000, 701_000_000).unwrap();
+        let narrow = BodyGrid::new(&eph, 5, BODY_GRID_STEP_S, 700_000_000, 700_100_000).unwrap();
+        let wide = BodyGrid::new(&eph, 5, BODY_GRID_STEP_S, 699_000_000, 701_000_000).unwrap();
         let t = TdbSeconds::new(700_050_123, 0.625);
         assert_eq!(narrow.position_km(&t), wide.position_km(&t));
         let node = TdbSeconds::new(700_056_000 / BODY_GRID_STEP_S * BODY_GRID_STEP_S, 0.0);

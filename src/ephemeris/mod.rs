@@ -53,7 +53,9 @@ pub struct Ephemeris {
     kernels: Vec<SpkKernel>,
     /// Position grids of Shapiro bodies for the batch being computed
     /// ([`Self::cover_body_grids`]; see [`grid`]).
-    grids: Vec<grid::PositionGrid>,
+    grids: Vec<grid::BodyGrid>,
+    /// The Earth's state grid of a tracking batch ([`Self::cover_earth_grid_utc_days`]).
+    earth_grid: Option<grid::BodyGrid>,
 }
 
 /// Calendar TDB text of an epoch (for messages).
@@ -89,7 +91,7 @@ impl Ephemeris {
             tracing::debug!(path = %p.as_ref().display(), segments = k.segments.len(), "loaded SPK kernel");
             kernels.push(k);
         }
-        Ok(Self { kernels, grids: Vec::new() })
+        Ok(Self { kernels, grids: Vec::new(), earth_grid: None })
     }
 
     /// Adds a kernel (taking precedence over those loaded before).
@@ -97,11 +99,12 @@ impl Ephemeris {
         self.kernels.push(k);
         // A later kernel may take precedence for a gridded body.
         self.grids.clear();
+        self.earth_grid = None;
     }
 
     /// From already parsed kernels.
     pub fn from_kernels(kernels: Vec<SpkKernel>) -> Self {
-        Self { kernels, grids: Vec::new() }
+        Self { kernels, grids: Vec::new(), earth_grid: None }
     }
 
     /// Makes position grids of `ids` cover TDB seconds `first_s ..= last_s`
@@ -114,7 +117,7 @@ impl Ephemeris {
                 continue;
             }
             self.grids.retain(|g| g.id != id);
-            if let Ok(g) = grid::PositionGrid::new(self, id, first_s, last_s) {
+            if let Ok(g) = grid::BodyGrid::new(self, id, grid::BODY_GRID_STEP_S, first_s, last_s) {
                 self.grids.push(g);
             }
         }
@@ -131,6 +134,37 @@ impl Ephemeris {
             // MJD 51 544.5 is J2000; TDB − UTC < 70 s, inside the padding.
             let j2000_s = |mjd: i64| (mjd - 51_544) * 86_400 - 43_200;
             self.cover_body_grids(ids, j2000_s(lo - 2), j2000_s(hi + 2));
+        }
+    }
+
+    /// A grid of the Earth's state (NAIF 399, every 30 min) over UTC days
+    /// (MJD), padded as [`Self::cover_body_grids_utc_days`]: for tracking
+    /// batches, whose rows each need about six Earth states within minutes
+    /// to hours of each other. Kept when it already covers the days.
+    pub fn cover_earth_grid_utc_days(&mut self, days_mjd_utc: impl IntoIterator<Item = i64>) {
+        let (lo, hi) = days_mjd_utc.into_iter().filter(|d| (40_000..100_000).contains(d)).fold((i64::MAX, i64::MIN), |(lo, hi), d| (lo.min(d), hi.max(d)));
+        if lo > hi {
+            return;
+        }
+        let j2000_s = |mjd: i64| (mjd - 51_544) * 86_400 - 43_200;
+        let (first_s, last_s) = (j2000_s(lo - 2), j2000_s(hi + 2));
+        if self.earth_grid.as_ref().is_some_and(|g| g.covers(first_s, last_s)) {
+            return;
+        }
+        self.earth_grid = grid::BodyGrid::new(self, 399, grid::EARTH_GRID_STEP_S, first_s, last_s).ok();
+    }
+
+    /// Barycentric state of the Earth: from the grid of a tracking batch when
+    /// it covers `t` (≤ 1e-4 m, ≤ 2e-7 m/s from the kernel: the f64 floor of
+    /// km positions; see [`grid`]), else from the kernels.
+    ///
+    /// # Errors
+    /// As [`Self::state_ssb`].
+    #[inline]
+    pub fn earth_state_ssb(&self, t: &TdbSeconds) -> Result<StateKm, EphemerisError> {
+        match self.earth_grid.as_ref().and_then(|g| g.state_km(t)) {
+            Some(s) => Ok(s),
+            None => self.state_ssb(399, t),
         }
     }
 
