@@ -149,11 +149,12 @@ pub fn load_tracking(file: &PipelineFile) -> Result<LoadedTracking, PipelineErro
 }
 
 /// The input columns of a tracking batch.
-pub struct TrackingInput {
-    pub obs_id: Vec<Option<String>>,
-    pub kind: Vec<Option<String>>,
-    pub rx_station: Vec<Option<String>>,
-    pub tx_station: Vec<Option<String>>,
+pub struct TrackingInput<'a> {
+    /// String columns are views into the input frame (no string copied).
+    pub obs_id: Vec<Option<&'a str>>,
+    pub kind: Vec<Option<&'a str>>,
+    pub rx_station: Vec<Option<&'a str>>,
+    pub tx_station: Vec<Option<&'a str>>,
     pub day: Vec<Option<i64>>,
     pub frac: Vec<Option<f64>>,
     pub count_s: Vec<Option<f64>>,
@@ -163,13 +164,13 @@ pub struct TrackingInput {
 }
 
 /// Reads and type-checks the input columns.
-pub fn read_tracking_input(df: &DataFrame, path: &Path) -> Result<TrackingInput, PipelineError> {
+pub fn read_tracking_input<'a>(df: &'a DataFrame, path: &Path) -> Result<TrackingInput<'a>, PipelineError> {
     let c = Columns { df, path };
     Ok(TrackingInput {
-        obs_id: c.str("obs_id")?,
-        kind: c.str("kind")?,
-        rx_station: c.str("rx_station")?,
-        tx_station: c.str("tx_station")?,
+        obs_id: c.str_ref("obs_id")?,
+        kind: c.str_ref("kind")?,
+        rx_station: c.str_ref("rx_station")?,
+        tx_station: c.str_ref("tx_station")?,
         day: c.i64("rx_mjd_day")?,
         frac: c.f64("rx_mjd_frac")?,
         count_s: c.f64("count_s")?,
@@ -257,8 +258,8 @@ pub fn run_tracking_loaded(file: &PipelineFile, mut lt: LoadedTracking, opts: &R
 /// One tracking batch in memory: output and rejects frames exactly as a run
 /// writes them, plus what the summary and plots need. `source` names the
 /// batch in errors.
-struct TrackingFrames {
-    input: TrackingInput,
+struct TrackingFrames<'a> {
+    input: TrackingInput<'a>,
     results: Vec<Result<TrackingResult, String>>,
     residual: Vec<f64>,
     reasons: Vec<String>,
@@ -266,10 +267,11 @@ struct TrackingFrames {
     rejects: DataFrame,
 }
 
-fn tracking_frames(lt: &mut LoadedTracking, df: &DataFrame, source: &Path) -> Result<TrackingFrames, PipelineError> {
+fn tracking_frames<'a>(lt: &mut LoadedTracking, df: &'a DataFrame, source: &Path) -> Result<TrackingFrames<'a>, PipelineError> {
     let input = read_tracking_input(df, source)?;
-    check_unique_ids(&input.obs_id, source)?;
-    let results = compute_tracking(lt, &input, true);
+    // The id check (one thread) runs beside the computation, as for pulsars.
+    let (unique, results) = rayon::join(|| check_unique_ids(&input.obs_id, source), || compute_tracking(lt, &input, true));
+    unique?;
     let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
     let good: Vec<(usize, &TrackingResult)> = results.iter().enumerate().filter_map(|(i, r)| r.as_ref().ok().map(|g| (i, g))).collect();
     let residual: Vec<f64> = good.iter().map(|(i, g)| input.value[*i].unwrap_or(f64::NAN) - g.computed).collect();
@@ -308,16 +310,21 @@ pub fn tracking_batch(lt: &mut LoadedTracking, df: &DataFrame, source: &Path) ->
 
 /// One partition of a tracking run.
 fn run_tracking_partition(lt: &mut LoadedTracking, input_path: &Path, output_path: &Path, mut prov: Provenance, plots: bool) -> Result<RunSummary, PipelineError> {
+    let t0 = std::time::Instant::now();
     let df = read_parquet(input_path)?;
+    let t1 = std::time::Instant::now();
     let TrackingFrames { input, results, residual, reasons, mut out, mut rejects } = tracking_frames(lt, &df, input_path)?;
+    let t2 = std::time::Instant::now();
+    tracing::debug!(rows = df.height(), read_s = (t1 - t0).as_secs_f64(), columns_compute_frames_s = (t2 - t1).as_secs_f64(), "tracking batch");
     let good: Vec<usize> = (0..results.len()).filter(|i| results[*i].is_ok()).collect();
     let mut summary = RunSummary::new(df.height(), out.height(), rejects.height(), output_path, &reasons);
 
-    // Per kind and station: rows, rejected, weighted RMS, χ²/N.
-    let mut groups: BTreeMap<(String, String), (Vec<f64>, Vec<f64>, usize)> = BTreeMap::new();
+    // Per kind and station: rows, rejected, weighted RMS, χ²/N (names
+    // borrowed from the input: no string per row).
+    let mut groups: BTreeMap<(&str, &str), (Vec<f64>, Vec<f64>, usize)> = BTreeMap::new();
     let mut k = 0;
     for (i, r) in results.iter().enumerate() {
-        let key = (input.kind[i].clone().unwrap_or_else(|| "(null)".into()), input.rx_station[i].clone().unwrap_or_else(|| "(null)".into()));
+        let key = (input.kind[i].as_deref().unwrap_or("(null)"), input.rx_station[i].as_deref().unwrap_or("(null)"));
         let e = groups.entry(key).or_default();
         if r.is_ok() {
             e.0.push(residual[k]);
@@ -341,17 +348,19 @@ fn run_tracking_partition(lt: &mut LoadedTracking, input_path: &Path, output_pat
     }
     prov.set_rows(summary.rows_in, summary.rows_out, summary.rows_rejected);
     let metadata = prov.finish();
+    let t3 = std::time::Instant::now();
     write_parquet(&mut rejects, &rejects_path(output_path), &metadata)?;
     write_parquet(&mut out, output_path, &metadata)?;
+    tracing::debug!(summary_s = (t3 - t2).as_secs_f64(), write_s = t3.elapsed().as_secs_f64(), "wrote {}", output_path.display());
     if plots {
         // One plot per observable kind, per station, in natural units.
-        let mut kinds: Vec<String> = good.iter().map(|i| input.kind[*i].clone().unwrap_or_default()).collect();
+        let mut kinds: Vec<String> = good.iter().map(|i| input.kind[*i].unwrap_or_default().to_string()).collect();
         kinds.sort();
         kinds.dedup();
         for kind in kinds {
             let sel: Vec<usize> = (0..good.len()).filter(|j| input.kind[good[*j]].as_deref() == Some(kind.as_str())).collect();
             let (scale, unit) = if kind.starts_with("doppler") { (1e3, "mHz") } else { (1e9, "ns") };
-            let labels: Vec<String> = sel.iter().map(|j| input.rx_station[good[*j]].clone().unwrap_or_default()).collect();
+            let labels: Vec<String> = sel.iter().map(|j| input.rx_station[good[*j]].unwrap_or_default().to_string()).collect();
             let t: Vec<f64> = sel.iter().map(|j| input.day[good[*j]].unwrap_or(0) as f64 + input.frac[good[*j]].unwrap_or(0.0)).collect();
             let y: Vec<f64> = sel.iter().map(|j| residual[*j] * scale).collect();
             let sg: Vec<f64> = sel.iter().map(|j| input.sigma[good[*j]].unwrap_or(0.0) * scale).collect();
@@ -375,9 +384,9 @@ pub fn synthesize_tracking(file: &PipelineFile, plan: &Path, out: &Path, noise: 
         let f = &row.fields;
         let num = |s: &str, w: &str| s.parse::<f64>().map_err(|_| bad(row.line, format!("{w} '{s}' is not a number")));
         let mjd = num(f[3], "rx_mjd")?;
-        kind.push(Some(f[0].to_string()));
-        rx.push(Some(f[1].to_string()));
-        tx.push(if f[2].is_empty() { None } else { Some(f[2].to_string()) });
+        kind.push(Some(f[0]));
+        rx.push(Some(f[1]));
+        tx.push(if f[2].is_empty() { None } else { Some(f[2]) });
         day.push(Some(mjd.floor() as i64));
         frac.push(Some(mjd - mjd.floor()));
         count.push(Some(num(f[4], "count_s")?));
@@ -385,8 +394,8 @@ pub fn synthesize_tracking(file: &PipelineFile, plan: &Path, out: &Path, noise: 
         sig.push(Some(num(f[6], "sigma")?));
     }
     let n = kind.len();
-    let ids: Vec<Option<String>> = (0..n).map(|i| Some(format!("{}-{i:05}", kind[i].as_deref().unwrap_or("")))).collect();
-    let input = TrackingInput { obs_id: ids.clone(), kind, rx_station: rx, tx_station: tx, day, frac, count_s: count, uplink_hz: up, value: vec![None; n], sigma: sig };
+    let ids: Vec<Option<String>> = (0..n).map(|i| Some(format!("{}-{i:05}", kind[i].unwrap_or("")))).collect();
+    let input = TrackingInput { obs_id: ids.iter().map(|s| s.as_deref()).collect(), kind, rx_station: rx, tx_station: tx, day, frac, count_s: count, uplink_hz: up, value: vec![None; n], sigma: sig };
     let mut lt = load_tracking(file)?;
     let res = compute_tracking(&mut lt, &input, false);
     let mut values = Vec::with_capacity(n);
@@ -396,7 +405,7 @@ pub fn synthesize_tracking(file: &PipelineFile, plan: &Path, out: &Path, noise: 
         values.push(r.computed + if noise { s * super::pulsar::gaussian(seed, i as u64) } else { 0.0 });
     }
     let mut df = DataFrame::new_infer_height(vec![
-        Column::new("obs_id".into(), ids),
+        Column::new("obs_id".into(), input.obs_id),
         Column::new("kind".into(), input.kind),
         Column::new("rx_station".into(), input.rx_station),
         Column::new("tx_station".into(), input.tx_station),
