@@ -236,10 +236,7 @@ mod tests {
         // 1900–2100 (ERFA/SOFA iauEra00 through sofars 0.6.3).
         let mut x = 0x2545_f491_4f6c_dd1du64;
         for k in 0..200_000 {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
-            let mjd = 15_000.0 + (x >> 11) as f64 / (1u64 << 53) as f64 * 73_000.0;
+            let mjd = 15_000.0 + (crate::xorshift64(&mut x) >> 11) as f64 / (1u64 << 53) as f64 * 73_000.0;
             let day = mjd.floor();
             let parts = match k % 4 {
                 0 => (2_400_000.5 + day, mjd - day),

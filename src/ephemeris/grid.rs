@@ -131,6 +131,17 @@ mod tests {
     /// effect on the Shapiro delays.
     const BOUNDS_M: &[(i32, f64)] = &[(10, 1e-3), (1, 2000.0), (2, 20.0), (301, 500.0), (4, 1.0), (5, 0.01), (6, 0.01), (7, 0.01), (8, 0.01)];
 
+    /// A uniformly drawn TDB epoch (s past J2000) in [lo, hi).
+    fn random_epoch(state: &mut u64, lo: i64, hi: i64) -> TdbSeconds {
+        let s = lo as f64 + (crate::xorshift64(state) >> 11) as f64 / (1u64 << 53) as f64 * (hi - lo) as f64;
+        TdbSeconds::new(s.floor() as i64, s - s.floor())
+    }
+
+    /// |p − q| of two km (or km/s) vectors, in m (or m/s).
+    fn distance_m(p: [f64; 3], q: [f64; 3]) -> f64 {
+        (0..3).map(|c| (p[c] - q[c]) * 1e3).map(|d| d * d).sum::<f64>().sqrt()
+    }
+
     #[test]
     fn grid_positions_match_the_kernel() {
         let eph = Ephemeris::load(&[std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("data/de421.bsp")]).unwrap();
@@ -142,15 +153,8 @@ mod tests {
             assert!(g.covers(lo, hi));
             let mut worst_m = 0.0f64;
             for _ in 0..4000 {
-                x ^= x << 13;
-                x ^= x >> 7;
-                x ^= x << 17;
-                let s = lo as f64 + (x >> 11) as f64 / (1u64 << 53) as f64 * (hi - lo) as f64;
-                let t = TdbSeconds::new(s.floor() as i64, s - s.floor());
-                let a = g.position_km(&t).unwrap();
-                let b = eph.position_ssb_km(id, &t).unwrap();
-                let d_m = (0..3).map(|c| (a[c] - b[c]) * 1e3).map(|d| d * d).sum::<f64>().sqrt();
-                worst_m = worst_m.max(d_m);
+                let t = random_epoch(&mut x, lo, hi);
+                worst_m = worst_m.max(distance_m(g.position_km(&t).unwrap(), eph.position_ssb_km(id, &t).unwrap()));
             }
             eprintln!("body {id}: grid vs kernel {worst_m:.3e} m");
             assert!(worst_m <= bound_m, "body {id}: {worst_m} m > {bound_m} m");
@@ -171,16 +175,11 @@ mod tests {
         let (mut wp, mut wv) = (0.0f64, 0.0f64);
         let mut x = 0x2545_f491_4f6c_dd1du64;
         for _ in 0..20_000 {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
-            let s = lo as f64 + (x >> 11) as f64 / (1u64 << 53) as f64 * (hi - lo) as f64;
-            let t = TdbSeconds::new(s.floor() as i64, s - s.floor());
+            let t = random_epoch(&mut x, lo, hi);
             let (a, b) = (g.state_km(&t).unwrap(), eph.state_ssb(399, &t).unwrap());
             assert_eq!(Some(a.position_km), g.position_km(&t));
-            let d = |p: [f64; 3], q: [f64; 3]| (0..3).map(|c| (p[c] - q[c]) * 1e3).map(|d| d * d).sum::<f64>().sqrt();
-            wp = wp.max(d(a.position_km, b.position_km));
-            wv = wv.max(d(a.velocity_km_s, b.velocity_km_s));
+            wp = wp.max(distance_m(a.position_km, b.position_km));
+            wv = wv.max(distance_m(a.velocity_km_s, b.velocity_km_s));
         }
         eprintln!("Earth grid vs kernel: {wp:.3e} m, {wv:.3e} m/s");
         assert!(wp <= EARTH_POSITION_TOL_M && wv <= EARTH_VELOCITY_TOL_M_S, "{wp} m, {wv} m/s");
