@@ -340,7 +340,12 @@ fn load_and_scan<L: Send, E: std::fmt::Display + Send>(
     input_of: impl Fn(&L) -> &Path,
     slice: impl Fn(&polars::prelude::DataFrame, &Path, usize, &mut Facts, &mut super::IdChecker) -> Result<(), super::PipelineError> + Sync,
 ) -> Option<(L, Result<Vec<Scanned>, String>)> {
-    let (loaded, scanned) = rayon::join(load, || input.as_deref().map(|i| scan_partitions(i, &slice)));
+    let (loaded, scanned) = rayon::join(load, || {
+        let t0 = std::time::Instant::now();
+        let s = input.as_deref().map(|i| scan_partitions(i, &slice));
+        tracing::debug!(scan_s = t0.elapsed().as_secs_f64(), "input scanned");
+        s
+    });
     match loaded {
         Ok(l) => {
             let scanned = scanned.unwrap_or_else(|| scan_partitions(input_of(&l), &slice));
