@@ -277,8 +277,9 @@ fn tracking_frames<'a>(lt: &mut LoadedTracking, df: &'a DataFrame, source: &Path
     let residual: Vec<f64> = good.iter().map(|(i, g)| input.value[*i].unwrap_or(f64::NAN) - g.computed).collect();
     let ts = &lt.ctx.earth.time;
     let parts = |e: &crate::time::Epoch| ts.mjd_parts(e).unwrap_or((e.mjd_day(), f64::NAN));
-    let bounce: Vec<(i64, f64)> = good.iter().map(|(_, g)| parts(&g.bounce_tdb)).collect();
-    let tx: Vec<Option<(i64, f64)>> = good.iter().map(|(_, g)| g.tx_utc.as_ref().map(parts)).collect();
+    // Exact day fractions (a 128-bit correction each): in parallel, order kept.
+    use rayon::prelude::*;
+    let (bounce, tx): (Vec<(i64, f64)>, Vec<Option<(i64, f64)>>) = good.par_iter().map(|(_, g)| (parts(&g.bounce_tdb), g.tx_utc.as_ref().map(parts))).unzip();
     let fcol = |n: &str, v: Vec<f64>| Column::new(n.into(), v);
     let ocol = |n: &str, v: Vec<Option<f64>>| Column::new(n.into(), v);
     let computed = vec![
