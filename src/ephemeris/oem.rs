@@ -217,7 +217,7 @@ pub fn parse_oem(text: &str, path: &Path, target: i32, ts: &TimeScales) -> Resul
             spk_type: if hermite { 13 } else { 9 },
             start_s: lo,
             end_s: hi,
-            data: SegmentData::Discrete(DiscreteStates { epochs_s, states, window, hermite }),
+            data: SegmentData::Discrete(DiscreteStates::new(epochs_s, states, window, hermite)),
         });
     }
     if segments.is_empty() {

@@ -138,6 +138,21 @@ pub struct DiscreteStates {
     pub window: usize,
     /// Type 13 (Hermite with velocities) or type 9 (Lagrange per component).
     pub hermite: bool,
+    /// Type 13 with a window of at most [`CACHED_WINDOW`] states: the
+    /// divided-difference table of each window, computed on first use (it
+    /// depends on the window's states alone, so results do not depend on
+    /// which row asked first).
+    hermite_tables: std::sync::Arc<Vec<std::sync::OnceLock<Box<HermiteTable>>>>,
+}
+
+/// Windows up to this many states keep their Hermite tables.
+pub const CACHED_WINDOW: usize = 8;
+
+/// Newton coefficients of one window's Hermite interpolant, per axis lane,
+/// on the doubled nodes z = (e₀, e₀, e₁, e₁, …) measured from e₀.
+#[derive(Debug)]
+struct HermiteTable {
+    coef: [[f64; LANES]; 2 * CACHED_WINDOW],
 }
 
 /// The data of one segment.
@@ -548,10 +563,33 @@ fn parse_discrete(d: &[f64], hermite: bool) -> Result<DiscreteStates, String> {
     if epochs_s.windows(2).any(|w| !(w[1] > w[0])) || states.iter().flatten().chain(&epochs_s).any(|x| !x.is_finite()) {
         return Err("epochs not increasing or values not finite".into());
     }
-    Ok(DiscreteStates { epochs_s, states, window, hermite })
+    Ok(DiscreteStates::new(epochs_s, states, window, hermite))
 }
 
 impl DiscreteStates {
+    /// Discrete states (already checked: epochs increasing, window ≤ states).
+    pub fn new(epochs_s: Vec<f64>, states: Vec<[f64; 6]>, window: usize, hermite: bool) -> Self {
+        let windows = if hermite && window <= CACHED_WINDOW { epochs_s.len() + 1 - window } else { 0 };
+        let hermite_tables = std::sync::Arc::new((0..windows).map(|_| std::sync::OnceLock::new()).collect());
+        Self { epochs_s, states, window, hermite, hermite_tables }
+    }
+
+    /// Newton coefficients of the Hermite interpolant of the window starting
+    /// at state `f`: the divided differences of [`hermite_at_zero_lanes`] on
+    /// the window's epochs measured from its first one (differences of
+    /// nearby f64 epochs are exact).
+    fn hermite_table(&self, f: usize) -> HermiteTable {
+        let w = self.window;
+        let e0 = self.epochs_s[f];
+        let x: [f64; CACHED_WINDOW] = std::array::from_fn(|j| if j < w { self.epochs_s[f + j] - e0 } else { 0.0 });
+        let (mut p, mut v) = ([[0.0f64; LANES]; CACHED_WINDOW], [[0.0f64; LANES]; CACHED_WINDOW]);
+        for (j, st) in self.states[f..f + w].iter().enumerate() {
+            p[j] = [st[0], st[1], st[2], 0.0];
+            v[j] = [st[3], st[4], st[5], 0.0];
+        }
+        HermiteTable { coef: hermite_coefficients_lanes::<{ 2 * CACHED_WINDOW }>(&x[..w], &p[..w], &v[..w]) }
+    }
+
     /// First index of the interpolation window at `t`, as SPICE selects it
     /// (SPKR09/SPKR13): for an even window the states around the last epoch
     /// ≤ t, half on each side; for an odd window centred on the nearest
@@ -581,6 +619,22 @@ impl DiscreteStates {
     /// interpolating polynomial, checked against spiceypy on the same file
     /// (`tests/tracking_reference.rs`).
     pub fn evaluate(&self, t: &TdbSeconds) -> StateKm {
+        if !self.hermite_tables.is_empty() {
+            // Type 13 with a small window: the window's table once, then a
+            // nested evaluation (value and derivative) per call.
+            let f = self.window_start(t);
+            let table = self.hermite_tables[f].get_or_init(|| Box::new(self.hermite_table(f)));
+            let n = 2 * self.window;
+            let (mut p, mut dp) = (table.coef[n - 1], [0.0f64; LANES]);
+            for k in (0..n - 1).rev() {
+                let mz = t.minus_f64_s(self.epochs_s[f + k / 2]);
+                for l in 0..LANES {
+                    dp[l] = dp[l] * mz + p[l];
+                    p[l] = p[l] * mz + table.coef[k][l];
+                }
+            }
+            return StateKm { position_km: [p[0], p[1], p[2]], velocity_km_s: [dp[0], dp[1], dp[2]] };
+        }
         // Scratch arrays on the stack sized for the window: small windows
         // (the usual 8–16 states) do not clear buffers for 64.
         if self.window <= SMALL_WINDOW { self.evaluate_in::<SMALL_WINDOW, { 2 * SMALL_WINDOW }>(t) } else { self.evaluate_in::<MAX_WINDOW, { 2 * MAX_WINDOW }>(t) }
@@ -651,6 +705,23 @@ fn lagrange_at_zero_lanes<const CAP: usize>(x: &[f64], y: &[[f64; LANES]]) -> [f
 /// `CAP2` ≥ `2 · x.len()` sizes the scratch arrays.
 fn hermite_at_zero_lanes<const CAP2: usize>(x: &[f64], y: &[[f64; LANES]], dy: &[[f64; LANES]]) -> ([f64; LANES], [f64; LANES]) {
     let n = 2 * x.len();
+    let coef = hermite_coefficients_lanes::<CAP2>(x, y, dy);
+    let (mut p, mut dp) = (coef[n - 1], [0.0f64; LANES]);
+    for k in (0..n - 1).rev() {
+        let mz = 0.0 - x[k / 2];
+        for l in 0..LANES {
+            dp[l] = dp[l] * mz + p[l];
+            p[l] = p[l] * mz + coef[k][l];
+        }
+    }
+    (p, dp)
+}
+
+/// Newton coefficients (divided differences on the doubled abscissae
+/// x₀, x₀, x₁, x₁, …) of the Hermite interpolant through values `y` and
+/// derivatives `dy`, one lane per ordinate.
+fn hermite_coefficients_lanes<const CAP2: usize>(x: &[f64], y: &[[f64; LANES]], dy: &[[f64; LANES]]) -> [[f64; LANES]; CAP2] {
+    let n = 2 * x.len();
     let mut z = [0.0f64; CAP2];
     for k in 0..n {
         z[k] = x[k / 2];
@@ -679,15 +750,7 @@ fn hermite_at_zero_lanes<const CAP2: usize>(x: &[f64], y: &[[f64; LANES]], dy: &
         }
         coef[m] = col[0];
     }
-    let (mut p, mut dp) = (coef[n - 1], [0.0f64; LANES]);
-    for k in (0..n - 1).rev() {
-        let mz = 0.0 - z[k];
-        for l in 0..LANES {
-            dp[l] = dp[l] * mz + p[l];
-            p[l] = p[l] * mz + coef[k][l];
-        }
-    }
-    (p, dp)
+    coef
 }
 
 /// Lagrange interpolation at 0 through (x_i, y_i) (Neville's scheme); the
@@ -872,6 +935,39 @@ mod tests {
             assert_eq!((a.target, a.center, a.start_s, a.end_s), (b.target, b.center, b.start_s, b.end_s));
             assert_eq!(a.evaluate(&t).map(|s| s.position_km), b.evaluate(&t).map(|s| s.position_km));
         }
+    }
+
+    #[test]
+    fn cached_hermite_tables_agree_with_the_per_call_interpolation() {
+        // The demo spacecraft (type 13, window 6): the table evaluated per
+        // window (epochs from the window's first) against the divided
+        // differences formed per call (epochs from t), 20 000 epochs:
+        // 1 µm and 1 nm/s (the coefficients differ only in how the epoch
+        // differences round).
+        const CACHED_VS_PER_CALL_KM: f64 = 1e-9;
+        const CACHED_VS_PER_CALL_KM_S: f64 = 1e-12;
+        let k = SpkKernel::load(&Path::new(env!("CARGO_MANIFEST_DIR")).join("data/demo/lapse1.bsp")).unwrap();
+        let SegmentData::Discrete(d) = &k.segments[0].data else { panic!("type 13 expected") };
+        assert!(d.hermite && !d.hermite_tables.is_empty());
+        let (lo, hi) = (d.epochs_s[0], d.epochs_s[d.epochs_s.len() - 1]);
+        let mut x = 0x1234_5678_9abc_def1u64;
+        let (mut wp, mut wv) = (0.0f64, 0.0f64);
+        for i in 0..20_000 {
+            let s = if i % 100 == 0 { d.epochs_s[(i / 100) % d.epochs_s.len()] } else { lo + (crate::xorshift64(&mut x) >> 11) as f64 / (1u64 << 53) as f64 * (hi - lo) };
+            let t = TdbSeconds::new(s.floor() as i64, s - s.floor());
+            let a = d.evaluate(&t);
+            let b = d.evaluate_in::<SMALL_WINDOW, { 2 * SMALL_WINDOW }>(&t);
+            for c in 0..3 {
+                wp = wp.max((a.position_km[c] - b.position_km[c]).abs());
+                wv = wv.max((a.velocity_km_s[c] - b.velocity_km_s[c]).abs());
+            }
+            if i % 100 == 0 {
+                // At a node: the stored state.
+                let j = (i / 100) % d.epochs_s.len();
+                assert_eq!(a.position_km, [d.states[j][0], d.states[j][1], d.states[j][2]]);
+            }
+        }
+        assert!(wp <= CACHED_VS_PER_CALL_KM && wv <= CACHED_VS_PER_CALL_KM_S, "{wp} km, {wv} km/s");
     }
 
     /// A type 2 segment made of these doubles alone.
