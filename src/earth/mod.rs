@@ -127,8 +127,8 @@ impl EarthModel {
         self.time.set_tdb_grid(((first_mjd_utc - 1.0) * day_fs) as i128, ((last_mjd_utc + 1.0) * day_fs) as i128);
     }
 
-    fn cip_at(&self, tt: &Epoch) -> CipXys {
-        let (j1, j2) = jd_parts(tt);
+    /// X, Y, s at a TT epoch given with its two-part Julian Date.
+    fn cip_at(&self, tt: &Epoch, (j1, j2): (f64, f64)) -> CipXys {
         match &self.cip {
             CipSource::Grid(g) => {
                 let mjd = tt.mjd_day() as f64 + j2;
@@ -152,7 +152,8 @@ impl EarthModel {
         let tai_fs = tt.label_fs() - crate::time::TT_MINUS_TAI_FS;
         let ut1_fs = tai_fs + seconds_to_fs(eop.ut1_minus_tai_s).unwrap_or(0);
         let ut1 = Epoch::from_uniform_fs(TimeScale::Ut1, ut1_fs).map_err(|source| EarthError::Time { context: "UT1".into(), source })?;
-        let r = itrs_to_gcrs(jd_parts(&tt), jd_parts(&ut1), self.cip_at(&tt), &eop);
+        let tt_jd = jd_parts(&tt);
+        let r = itrs_to_gcrs(tt_jd, jd_parts(&ut1), self.cip_at(&tt, tt_jd), &eop);
         Ok((r, eop, tt))
     }
 
