@@ -86,24 +86,30 @@ def bigger(table, copies):
 
 def test_gil_is_released_while_computing():
     p = ROOT / "pipelines/pulsar_demo.toml"
-    t = bigger(pq.read_table(pipeline_input(p)), 30)
     lapse.load(p)
-    ticks = []
-    stop = threading.Event()
+    base = pq.read_table(pipeline_input(p))
+    # A batch long enough to watch another thread run during it: grown until
+    # it takes over 0.1 s (lapse gets faster; the machine's speed varies).
+    for copies in (60, 120, 240, 480, 960):
+        t = bigger(base, copies)
+        ticks = []
+        stop = threading.Event()
 
-    def ticker():
-        while not stop.is_set():
-            ticks.append(time.perf_counter())
-            time.sleep(0.001)
+        def ticker():
+            while not stop.is_set():
+                ticks.append(time.perf_counter())
+                time.sleep(0.001)
 
-    th = threading.Thread(target=ticker)
-    th.start()
-    time.sleep(0.01)
-    t0 = time.perf_counter()
-    out = lapse.process(t, p)
-    t1 = time.perf_counter()
-    stop.set()
-    th.join()
+        th = threading.Thread(target=ticker)
+        th.start()
+        time.sleep(0.01)
+        t0 = time.perf_counter()
+        out = lapse.process(t, p)
+        t1 = time.perf_counter()
+        stop.set()
+        th.join()
+        if t1 - t0 > 0.1:
+            break
     inside = [x for x in ticks if t0 + 0.02 < x < t1 - 0.02]
     assert out.num_rows == t.num_rows
     assert t1 - t0 > 0.06, "batch too small to test the GIL"
