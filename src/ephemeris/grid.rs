@@ -32,67 +32,84 @@
 //! and its error term; section number from memory). NAIF SPK Required
 //! Reading for the states at the nodes.
 
-use super::{Ephemeris, EphemerisError, StateKm, TdbSeconds};
+use super::{Ephemeris, StateKm, TdbSeconds};
 
 /// Grid step of the Shapiro bodies, TDB seconds (half a day).
 pub const BODY_GRID_STEP_S: i64 = 43_200;
 /// Grid step of the Earth, TDB seconds (30 minutes).
 pub const EARTH_GRID_STEP_S: i64 = 1_800;
 
-/// One body's positions (km) and velocities (km/s) at the grid nodes.
+/// Nodes per lazily computed block (and one more: the next block's first).
+const BLOCK_NODES: usize = 64;
+
+/// One block's nodes: [x, y, z, vx, vy, vz] (km, km/s) per node, or `None`
+/// when a node lies outside the kernels (the epochs are then evaluated
+/// directly).
+type Block = Option<Box<[[f64; 6]; BLOCK_NODES + 1]>>;
+
+/// One body's positions (km) and velocities (km/s) at the grid nodes,
+/// computed block by block on first use: a batch spanning decades with
+/// sparse rows computes only the blocks its rows touch, and a value never
+/// depends on which row or thread asked first.
 #[derive(Clone, Debug)]
 pub struct BodyGrid {
     /// NAIF id of the body.
     pub id: i32,
     /// Node spacing, TDB seconds.
     step_s: i64,
-    /// Index of the first node (node k at k · step seconds past J2000 TDB).
-    first_node: i64,
-    /// [x, y, z, vx, vy, vz] per node.
-    nodes: Vec<[f64; 6]>,
+    /// Index of the first block (block b holds nodes b·64 ..= b·64 + 64;
+    /// node k at k · step seconds past J2000 TDB).
+    first_block: i64,
+    blocks: Vec<std::sync::OnceLock<Block>>,
 }
 
 impl BodyGrid {
-    /// The grid of body `id` with step `step_s` (s) and nodes covering TDB
-    /// seconds `first_s ..= last_s` past J2000 (one node beyond each end);
-    /// the nodes are evaluated in parallel.
-    ///
-    /// # Errors
-    /// The ephemeris's, when a node is outside its coverage.
-    pub fn new(eph: &Ephemeris, id: i32, step_s: i64, first_s: i64, last_s: i64) -> Result<Self, EphemerisError> {
-        use rayon::prelude::*;
-        let first_node = first_s.div_euclid(step_s);
-        let last_node = last_s.div_euclid(step_s) + 1;
-        let nodes = (first_node..=last_node)
-            .into_par_iter()
-            .map(|k| {
-                let s = eph.state_ssb(id, &TdbSeconds::new(k * step_s, 0.0))?;
-                let (p, v) = (s.position_km, s.velocity_km_s);
-                Ok([p[0], p[1], p[2], v[0], v[1], v[2]])
-            })
-            .collect::<Result<Vec<_>, EphemerisError>>()?;
-        Ok(Self { id, step_s, first_node, nodes })
+    /// The grid of body `id` with step `step_s` (s) answering at TDB seconds
+    /// `first_s ..= last_s` past J2000. Nothing is evaluated yet.
+    pub fn new(id: i32, step_s: i64, first_s: i64, last_s: i64) -> Self {
+        let block_s = step_s * BLOCK_NODES as i64;
+        let first_block = first_s.div_euclid(block_s);
+        let last_block = last_s.div_euclid(block_s).max(first_block);
+        let blocks = (first_block..=last_block).map(|_| std::sync::OnceLock::new()).collect();
+        Self { id, step_s, first_block, blocks }
     }
 
     /// True when the grid answers at TDB seconds `first_s ..= last_s`.
     pub fn covers(&self, first_s: i64, last_s: i64) -> bool {
-        let last_node = self.first_node + self.nodes.len() as i64 - 1;
-        first_s.div_euclid(self.step_s) >= self.first_node && last_s.div_euclid(self.step_s) < last_node
+        let block_s = self.step_s * BLOCK_NODES as i64;
+        first_s.div_euclid(block_s) >= self.first_block && last_s.div_euclid(block_s) < self.first_block + self.blocks.len() as i64
+    }
+
+    /// The nodes of block `b` (its 64 nodes and the next block's first).
+    fn block(&self, eph: &Ephemeris, b: i64) -> Option<&[[f64; 6]; BLOCK_NODES + 1]> {
+        let cell = self.blocks.get(usize::try_from(b - self.first_block).ok()?)?;
+        cell.get_or_init(|| {
+            let mut nodes = Box::new([[0.0; 6]; BLOCK_NODES + 1]);
+            for (j, node) in nodes.iter_mut().enumerate() {
+                let k = b * BLOCK_NODES as i64 + j as i64;
+                let s = eph.state_ssb(self.id, &TdbSeconds::new(k * self.step_s, 0.0)).ok()?;
+                let (p, v) = (s.position_km, s.velocity_km_s);
+                *node = [p[0], p[1], p[2], v[0], v[1], v[2]];
+            }
+            Some(nodes)
+        })
+        .as_deref()
     }
 
     /// The two nodes around `t` and the position u ∈ [0, 1) between them.
     #[inline]
-    fn interval(&self, t: &TdbSeconds) -> Option<(&[f64; 6], &[f64; 6], f64)> {
+    fn interval(&self, eph: &Ephemeris, t: &TdbSeconds) -> Option<(&[f64; 6], &[f64; 6], f64)> {
         let k = t.whole_s.div_euclid(self.step_s);
-        let i = usize::try_from(k - self.first_node).ok()?;
-        let (a, b) = (self.nodes.get(i)?, self.nodes.get(i + 1)?);
-        Some((a, b, (t.whole_s.rem_euclid(self.step_s) as f64 + t.frac_s) / self.step_s as f64))
+        let nodes = self.block(eph, k.div_euclid(BLOCK_NODES as i64))?;
+        let j = k.rem_euclid(BLOCK_NODES as i64) as usize;
+        Some((&nodes[j], &nodes[j + 1], (t.whole_s.rem_euclid(self.step_s) as f64 + t.frac_s) / self.step_s as f64))
     }
 
-    /// Interpolated barycentric position (km) at `t`, or `None` outside the grid.
+    /// Interpolated barycentric position (km) at `t` (nodes from `eph`, the
+    /// ephemeris the grid belongs to), or `None` outside the grid.
     #[inline]
-    pub fn position_km(&self, t: &TdbSeconds) -> Option<[f64; 3]> {
-        let (a, b, u) = self.interval(t)?;
+    pub fn position_km(&self, eph: &Ephemeris, t: &TdbSeconds) -> Option<[f64; 3]> {
+        let (a, b, u) = self.interval(eph, t)?;
         let h = self.step_s as f64;
         // Cubic Hermite basis on [0, 1].
         let (u2, u3) = (u * u, u * u * u);
@@ -108,8 +125,8 @@ impl BodyGrid {
     /// Interpolated barycentric state (km, km/s) at `t`: the Hermite cubic
     /// and its time derivative, or `None` outside the grid.
     #[inline]
-    pub fn state_km(&self, t: &TdbSeconds) -> Option<StateKm> {
-        let (a, b, u) = self.interval(t)?;
+    pub fn state_km(&self, eph: &Ephemeris, t: &TdbSeconds) -> Option<StateKm> {
+        let (a, b, u) = self.interval(eph, t)?;
         let h = self.step_s as f64;
         let (u2, u3) = (u * u, u * u * u);
         let (h10, h01, h11) = (u3 - 2.0 * u2 + u, -2.0 * u3 + 3.0 * u2, u3 - u2);
@@ -149,12 +166,12 @@ mod tests {
         let (lo, hi) = (-315_576_000i64, 946_728_000i64);
         let mut x = 0x9e37_79b9_7f4a_7c15u64;
         for &(id, bound_m) in BOUNDS_M {
-            let g = BodyGrid::new(&eph, id, BODY_GRID_STEP_S, lo, hi).unwrap();
+            let g = BodyGrid::new(id, BODY_GRID_STEP_S, lo, hi);
             assert!(g.covers(lo, hi));
             let mut worst_m = 0.0f64;
             for _ in 0..4000 {
                 let t = random_epoch(&mut x, lo, hi);
-                worst_m = worst_m.max(distance_m(g.position_km(&t).unwrap(), eph.position_ssb_km(id, &t).unwrap()));
+                worst_m = worst_m.max(distance_m(g.position_km(&eph, &t).unwrap(), eph.position_ssb_km(id, &t).unwrap()));
             }
             eprintln!("body {id}: grid vs kernel {worst_m:.3e} m");
             assert!(worst_m <= bound_m, "body {id}: {worst_m} m > {bound_m} m");
@@ -171,13 +188,13 @@ mod tests {
         let eph = Ephemeris::load(&[std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("data/de421.bsp")]).unwrap();
         // Two years (2024–2025), 20 000 epochs.
         let (lo, hi) = (757_339_200i64, 820_411_200i64);
-        let g = BodyGrid::new(&eph, 399, EARTH_GRID_STEP_S, lo, hi).unwrap();
+        let g = BodyGrid::new(399, EARTH_GRID_STEP_S, lo, hi);
         let (mut wp, mut wv) = (0.0f64, 0.0f64);
         let mut x = 0x2545_f491_4f6c_dd1du64;
         for _ in 0..20_000 {
             let t = random_epoch(&mut x, lo, hi);
-            let (a, b) = (g.state_km(&t).unwrap(), eph.state_ssb(399, &t).unwrap());
-            assert_eq!(Some(a.position_km), g.position_km(&t));
+            let (a, b) = (g.state_km(&eph, &t).unwrap(), eph.state_ssb(399, &t).unwrap());
+            assert_eq!(Some(a.position_km), g.position_km(&eph, &t));
             wp = wp.max(distance_m(a.position_km, b.position_km));
             wv = wv.max(distance_m(a.velocity_km_s, b.velocity_km_s));
         }
@@ -188,13 +205,16 @@ mod tests {
     #[test]
     fn nodes_are_exact_and_values_do_not_depend_on_the_span() {
         let eph = Ephemeris::load(&[std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("data/de421.bsp")]).unwrap();
-        let narrow = BodyGrid::new(&eph, 5, BODY_GRID_STEP_S, 700_000_000, 700_100_000).unwrap();
-        let wide = BodyGrid::new(&eph, 5, BODY_GRID_STEP_S, 699_000_000, 701_000_000).unwrap();
+        let narrow = BodyGrid::new(5, BODY_GRID_STEP_S, 700_000_000, 700_100_000);
+        let wide = BodyGrid::new(5, BODY_GRID_STEP_S, 699_000_000, 701_000_000);
         let t = TdbSeconds::new(700_050_123, 0.625);
-        assert_eq!(narrow.position_km(&t), wide.position_km(&t));
+        assert_eq!(narrow.position_km(&eph, &t), wide.position_km(&eph, &t));
         let node = TdbSeconds::new(700_056_000 / BODY_GRID_STEP_S * BODY_GRID_STEP_S, 0.0);
-        assert_eq!(narrow.position_km(&node), Some(eph.state_ssb(5, &node).unwrap().position_km));
-        assert!(narrow.position_km(&TdbSeconds::new(800_000_000, 0.0)).is_none());
+        assert_eq!(narrow.position_km(&eph, &node), Some(eph.state_ssb(5, &node).unwrap().position_km));
+        assert!(narrow.position_km(&eph, &TdbSeconds::new(800_000_000, 0.0)).is_none());
+        // Outside the kernel's coverage: no block, no value (direct evaluation then errs).
+        let far = BodyGrid::new(5, BODY_GRID_STEP_S, 9_000_000_000, 9_000_100_000);
+        assert!(far.position_km(&eph, &TdbSeconds::new(9_000_050_000, 0.0)).is_none());
         assert!(!narrow.covers(600_000_000, 700_000_000));
     }
 }

@@ -108,18 +108,16 @@ impl Ephemeris {
     }
 
     /// Makes position grids of `ids` cover TDB seconds `first_s ..= last_s`
-    /// past J2000, building those that fall short (nodes at fixed epochs:
-    /// values do not depend on the span). A body whose grid cannot be built
-    /// (a node outside the kernels) keeps being evaluated directly.
+    /// past J2000, replacing those that fall short (nodes at fixed epochs,
+    /// computed in blocks on first use: values do not depend on the span).
+    /// Epochs whose block has a node outside the kernels are evaluated directly.
     pub fn cover_body_grids(&mut self, ids: &[i32], first_s: i64, last_s: i64) {
         for &id in ids {
             if self.grids.iter().any(|g| g.id == id && g.covers(first_s, last_s)) {
                 continue;
             }
             self.grids.retain(|g| g.id != id);
-            if let Ok(g) = grid::BodyGrid::new(self, id, grid::BODY_GRID_STEP_S, first_s, last_s) {
-                self.grids.push(g);
-            }
+            self.grids.push(grid::BodyGrid::new(id, grid::BODY_GRID_STEP_S, first_s, last_s));
         }
     }
 
@@ -151,7 +149,7 @@ impl Ephemeris {
         if self.earth_grid.as_ref().is_some_and(|g| g.covers(first_s, last_s)) {
             return;
         }
-        self.earth_grid = grid::BodyGrid::new(self, 399, grid::EARTH_GRID_STEP_S, first_s, last_s).ok();
+        self.earth_grid = Some(grid::BodyGrid::new(399, grid::EARTH_GRID_STEP_S, first_s, last_s));
     }
 
     /// Barycentric state of the Earth: from the grid of a tracking batch when
@@ -162,7 +160,7 @@ impl Ephemeris {
     /// As [`Self::state_ssb`].
     #[inline]
     pub fn earth_state_ssb(&self, t: &TdbSeconds) -> Result<StateKm, EphemerisError> {
-        match self.earth_grid.as_ref().and_then(|g| g.state_km(t)) {
+        match self.earth_grid.as_ref().and_then(|g| g.state_km(self, t)) {
             Some(s) => Ok(s),
             None => self.state_ssb(399, t),
         }
@@ -176,7 +174,7 @@ impl Ephemeris {
     /// As [`Self::position_ssb_km`].
     #[inline]
     pub fn shapiro_position_ssb_km(&self, target: i32, t: &TdbSeconds) -> Result<[f64; 3], EphemerisError> {
-        match self.grids.iter().find(|g| g.id == target).and_then(|g| g.position_km(t)) {
+        match self.grids.iter().find(|g| g.id == target).and_then(|g| g.position_km(self, t)) {
             Some(p) => Ok(p),
             None => self.position_ssb_km(target, t),
         }

@@ -569,7 +569,7 @@ fn parse_discrete(d: &[f64], hermite: bool) -> Result<DiscreteStates, String> {
 impl DiscreteStates {
     /// Discrete states (already checked: epochs increasing, window ≤ states).
     pub fn new(epochs_s: Vec<f64>, states: Vec<[f64; 6]>, window: usize, hermite: bool) -> Self {
-        let windows = if hermite && window <= CACHED_WINDOW { epochs_s.len() + 1 - window } else { 0 };
+        let windows = if hermite && window <= CACHED_WINDOW { (epochs_s.len() + 1).saturating_sub(window) } else { 0 };
         let hermite_tables = std::sync::Arc::new((0..windows).map(|_| std::sync::OnceLock::new()).collect());
         Self { epochs_s, states, window, hermite, hermite_tables }
     }
