@@ -210,9 +210,7 @@ fn fast_path_agrees_with_direct_path() {
     let p = pipeline(&d, Path::new("/unused.parquet"), &[]);
     let direct = load_pulsar(&PipelineFile::read(&p).unwrap()).unwrap();
     let mut fast = load_pulsar(&PipelineFile::read(&p).unwrap()).unwrap();
-    fast.ctx.earth.set_cip_grid(58_600.0, 60_900.0);
-    let ids: Vec<i32> = fast.ctx.shapiro.iter().map(|b| b.naif_id).collect();
-    fast.ctx.ephemeris.cover_body_grids_utc_days(&ids, [58_600, 60_900]);
+    fast.ctx.cover_batch_days(&[Some(58_600), Some(60_900)]);
     let st = direct.ctx.stations.get("KESTREL-1").unwrap().clone();
     let (mut mt, mut mp) = (0.0f64, 0.0f64);
     for k in 0..3000 {

@@ -346,10 +346,7 @@ fn fast_path_agrees_with_direct_light_time_solution() {
     let num = |c: &str| -> Vec<f64> { obs.column(c).unwrap().cast(&DataType::Float64).unwrap().f64().unwrap().iter().map(|v| v.unwrap_or(f64::NAN)).collect() };
     let (kinds, rxs, txs) = (text("kind"), text("rx_station"), text("tx_station"));
     let (days, fracs, counts, ups) = (num("rx_mjd_day"), num("rx_mjd_frac"), num("count_s"), num("uplink_hz"));
-    fast.earth.cover_utc_days(days.iter().map(|d| *d as i64));
-    let ids: Vec<i32> = fast.shapiro.iter().map(|b| b.naif_id).collect();
-    fast.ephemeris.cover_body_grids_utc_days(&ids, days.iter().map(|d| *d as i64));
-    fast.ephemeris.cover_earth_grid_utc_days(days.iter().map(|d| *d as i64));
+    fast.cover_batch_days(&days.iter().map(|d| Some(*d as i64)).collect::<Vec<_>>());
     let spacecraft = |t: &Epoch| state(&direct.ephemeris, direct.target, t);
     let (mut worst_t, mut worst_x, mut n) = (0.0f64, 0.0f64, 0);
     for i in (0..obs.height()).step_by(3) {
@@ -380,7 +377,7 @@ fn fast_path_agrees_with_direct_light_time_solution() {
         worst_t = worst_t.max(dt);
         // The transmitting station at the direct solution's epoch: hinted one pass vs two passes.
         let exact = direct.earth.station_state_at(&direct.ephemeris, tx, &up.t_tx).unwrap();
-        let hinted = fast.earth.station_state_at_tdb_hinted(&fast.ephemeris, tx, &up.t_tx, exact.observer_term_s * 0.999).unwrap();
+        let hinted = fast.earth.station_state_at_hinted(&fast.ephemeris, tx, &up.t_tx, exact.observer_term_s * 0.999).unwrap();
         let step_s = (up.t_tx.label_fs() - hinted.tdb.label_fs()) as f64 * 1e-15;
         worst_x = worst_x.max((hinted.bcrs_position_m + hinted.bcrs_velocity_m_s * step_s - up.x_tx_m).norm());
         n += 1;

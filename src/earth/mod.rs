@@ -112,8 +112,9 @@ impl EarthModel {
     /// multiples of a power-of-two step, so a result does not depend on
     /// which span built the grid.
     pub fn cover_utc_days(&mut self, days_mjd_utc: impl IntoIterator<Item = i64>) {
-        let (lo, hi) = days_mjd_utc.into_iter().filter(|d| (40_000..100_000).contains(d)).fold((i64::MAX, i64::MIN), |(lo, hi), d| (lo.min(d), hi.max(d)));
-        if lo <= hi && !self.grids_cover(lo as f64, hi as f64 + 1.0) {
+        if let Some((lo, hi)) = crate::time::batch_day_span(days_mjd_utc)
+            && !self.grids_cover(lo as f64, hi as f64 + 1.0)
+        {
             self.set_cip_grid(lo as f64, hi as f64 + 1.0);
         }
     }
@@ -243,17 +244,18 @@ impl EarthModel {
     /// IERS Conventions 2010, ch. 10, eq. 10.9 (the observer term that
     /// couples the TDB epoch to the station position).
     pub fn station_state_at(&self, eph: &Ephemeris, station: &Station, e: &Epoch) -> Result<StationState, EarthError> {
-        let to_utc = |term_s: f64| self.time.convert(*e, TimeScale::Utc, term_s).map_err(|source| EarthError::Time { context: format!("{} → UTC", e.scale()), source });
-        let first = self.station_state(eph, station, &to_utc(0.0)?)?;
+        let first = self.station_state_at_hinted(eph, station, e, 0.0)?;
         if !matches!(e.scale(), TimeScale::Tdb | TimeScale::Tcb) {
             return Ok(first);
         }
-        self.station_state(eph, station, &to_utc(first.observer_term_s)?)
+        self.station_state_at_hinted(eph, station, e, first.observer_term_s)
     }
 
-    /// The station state at a TDB epoch in one pass, given the observer term
-    /// (s) at a nearby epoch of the same station (`hint_observer_s`) — for
-    /// light-time iterations, which already hold such a state.
+    /// The station state at an epoch in any scale in one pass, given the
+    /// observer term (s) at a nearby epoch of the same station
+    /// (`hint_observer_s`; it only enters for TDB and TCB epochs) — for
+    /// light-time iterations, which already hold such a state, and the
+    /// passes of [`Self::station_state_at`].
     ///
     /// The returned state is exact at its own `tdb`, which differs from `t`
     /// by the change of the observer term between the hint's epoch and `t`:
@@ -268,7 +270,7 @@ impl EarthModel {
     ///
     /// # References
     /// IERS Conventions 2010, ch. 10, eq. 10.9.
-    pub fn station_state_at_tdb_hinted(&self, eph: &Ephemeris, station: &Station, t: &Epoch, hint_observer_s: f64) -> Result<StationState, EarthError> {
+    pub fn station_state_at_hinted(&self, eph: &Ephemeris, station: &Station, t: &Epoch, hint_observer_s: f64) -> Result<StationState, EarthError> {
         let utc = self.time.convert(*t, TimeScale::Utc, hint_observer_s).map_err(|source| EarthError::Time { context: format!("{} → UTC", t.scale()), source })?;
         self.station_state(eph, station, &utc)
     }

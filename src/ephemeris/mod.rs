@@ -58,6 +58,17 @@ pub struct Ephemeris {
     earth_grid: Option<grid::BodyGrid>,
 }
 
+/// TDB seconds past J2000 a batch's grids cover for its UTC days (MJD, see
+/// [`crate::time::batch_day_span`]): from two days before the first
+/// (retarded epochs of the bodies, light time to a spacecraft) to two days
+/// after the last. MJD 51 544.5 is J2000; TDB − UTC < 70 s, inside the
+/// padding.
+fn grid_span_s(days_mjd_utc: impl IntoIterator<Item = i64>) -> Option<(i64, i64)> {
+    let (lo, hi) = crate::time::batch_day_span(days_mjd_utc)?;
+    let j2000_s = |mjd: i64| (mjd - 51_544) * 86_400 - 43_200;
+    Some((j2000_s(lo - 2), j2000_s(hi + 2)))
+}
+
 /// Calendar TDB text of an epoch (for messages).
 fn tdb_text(t: &TdbSeconds) -> String {
     let fs = t.whole_s as i128 * crate::time::femto::FS_PER_S
@@ -121,31 +132,22 @@ impl Ephemeris {
         }
     }
 
-    /// [`Self::cover_body_grids`] for a batch over UTC days (MJD): from two
-    /// days before the first (retarded epochs of the bodies, light time to
-    /// a spacecraft) to a day after the last. Days outside MJD 40 000 –
-    /// 100 000 are skipped (their rows are rejected later); epochs outside
-    /// the grids are evaluated directly.
+    /// [`Self::cover_body_grids`] for a batch over UTC days (MJD; see
+    /// [`grid_span_s`]); epochs outside the grids are evaluated directly.
     pub fn cover_body_grids_utc_days(&mut self, ids: &[i32], days_mjd_utc: impl IntoIterator<Item = i64>) {
-        let (lo, hi) = days_mjd_utc.into_iter().filter(|d| (40_000..100_000).contains(d)).fold((i64::MAX, i64::MIN), |(lo, hi), d| (lo.min(d), hi.max(d)));
-        if lo <= hi && !ids.is_empty() {
-            // MJD 51 544.5 is J2000; TDB − UTC < 70 s, inside the padding.
-            let j2000_s = |mjd: i64| (mjd - 51_544) * 86_400 - 43_200;
-            self.cover_body_grids(ids, j2000_s(lo - 2), j2000_s(hi + 2));
+        if let Some((first_s, last_s)) = grid_span_s(days_mjd_utc)
+            && !ids.is_empty()
+        {
+            self.cover_body_grids(ids, first_s, last_s);
         }
     }
 
     /// A grid of the Earth's state (NAIF 399, every 30 min) over UTC days
-    /// (MJD), padded as [`Self::cover_body_grids_utc_days`]: for tracking
-    /// batches, whose rows each need about six Earth states within minutes
-    /// to hours of each other. Kept when it already covers the days.
+    /// (MJD; see [`grid_span_s`]): for tracking batches, whose rows each need
+    /// about six Earth states within minutes to hours of each other. Kept
+    /// when it already covers the days.
     pub fn cover_earth_grid_utc_days(&mut self, days_mjd_utc: impl IntoIterator<Item = i64>) {
-        let (lo, hi) = days_mjd_utc.into_iter().filter(|d| (40_000..100_000).contains(d)).fold((i64::MAX, i64::MIN), |(lo, hi), d| (lo.min(d), hi.max(d)));
-        if lo > hi {
-            return;
-        }
-        let j2000_s = |mjd: i64| (mjd - 51_544) * 86_400 - 43_200;
-        let (first_s, last_s) = (j2000_s(lo - 2), j2000_s(hi + 2));
+        let Some((first_s, last_s)) = grid_span_s(days_mjd_utc) else { return };
         if self.earth_grid.as_ref().is_some_and(|g| g.covers(first_s, last_s)) {
             return;
         }

@@ -2,9 +2,8 @@
 //! (types 2 and 3) evaluated here on a two-part TDB epoch.
 //!
 //! anise parses and validates the DAF container (file record, endianness,
-//! summary records); the file's doubles are read once into one aligned
-//! buffer that the Chebyshev segments share, and we evaluate them
-//! ourselves, because anise's query epoch is an `f64` of TDB seconds past
+//! summary records); the file is memory-mapped, its Chebyshev segments
+//! index into the mapping, and we evaluate them ourselves, because anise's query epoch is an `f64` of TDB seconds past
 //! J2000, which resolves ≈ 0.1 µs in this century (≈ 3.6 mm of Earth
 //! motion; `REFERENCE.md` §10), above the 1 mm this tool needs.
 //!
@@ -440,18 +439,13 @@ impl KernelBytes {
     /// Maps a file, with its stamp for [`crate::io::digest::remember`]
     /// (`None` when the file changed around the mapping).
     fn map(path: &Path) -> std::io::Result<(Self, Option<crate::io::digest::Stamp>)> {
-        let before = crate::io::digest::stamp(path);
-        let f = std::fs::File::open(path)?;
-        // SAFETY: read-only mapping of a file we do not modify; see the type's
-        // note on files truncated by others meanwhile.
-        let buf = if f.metadata()?.len() >= 8 {
-            Self::Mapped(unsafe { memmap2::Mmap::map(&f)? })
-        } else {
-            Self::copied(&std::fs::read(path)?)
+        let open = || -> std::io::Result<Self> {
+            let f = std::fs::File::open(path)?;
+            // SAFETY: read-only mapping of a file we do not modify; see the
+            // type's note on files truncated by others meanwhile.
+            Ok(if f.metadata()?.len() >= 8 { Self::Mapped(unsafe { memmap2::Mmap::map(&f)? }) } else { Self::copied(&std::fs::read(path)?) })
         };
-        let len = buf.bytes().len() as u64;
-        let st = before.filter(|st| st.0 == len && crate::io::digest::stamp(path).as_ref() == Some(st));
-        Ok((buf, st))
+        crate::io::digest::stamped(path, open, |b| b.bytes().len())
     }
 
     fn copied(bytes: &[u8]) -> Self {
@@ -582,12 +576,19 @@ impl DiscreteStates {
         let w = self.window;
         let e0 = self.epochs_s[f];
         let x: [f64; CACHED_WINDOW] = std::array::from_fn(|j| if j < w { self.epochs_s[f + j] - e0 } else { 0.0 });
-        let (mut p, mut v) = ([[0.0f64; LANES]; CACHED_WINDOW], [[0.0f64; LANES]; CACHED_WINDOW]);
-        for (j, st) in self.states[f..f + w].iter().enumerate() {
+        let (p, v) = self.window_lanes::<CACHED_WINDOW>(f);
+        HermiteTable { coef: hermite_coefficients_lanes::<{ 2 * CACHED_WINDOW }>(&x[..w], &p[..w], &v[..w]) }
+    }
+
+    /// The positions and velocities of the window starting at state `f`, one
+    /// lane per axis (`CAP` ≥ the window).
+    fn window_lanes<const CAP: usize>(&self, f: usize) -> ([[f64; LANES]; CAP], [[f64; LANES]; CAP]) {
+        let (mut p, mut v) = ([[0.0f64; LANES]; CAP], [[0.0f64; LANES]; CAP]);
+        for (j, st) in self.states[f..f + self.window].iter().enumerate() {
             p[j] = [st[0], st[1], st[2], 0.0];
             v[j] = [st[3], st[4], st[5], 0.0];
         }
-        HermiteTable { coef: hermite_coefficients_lanes::<{ 2 * CACHED_WINDOW }>(&x[..w], &p[..w], &v[..w]) }
+        (p, v)
     }
 
     /// First index of the interpolation window at `t`, as SPICE selects it
@@ -624,15 +625,7 @@ impl DiscreteStates {
             // nested evaluation (value and derivative) per call.
             let f = self.window_start(t);
             let table = self.hermite_tables[f].get_or_init(|| Box::new(self.hermite_table(f)));
-            let n = 2 * self.window;
-            let (mut p, mut dp) = (table.coef[n - 1], [0.0f64; LANES]);
-            for k in (0..n - 1).rev() {
-                let mz = t.minus_f64_s(self.epochs_s[f + k / 2]);
-                for l in 0..LANES {
-                    dp[l] = dp[l] * mz + p[l];
-                    p[l] = p[l] * mz + table.coef[k][l];
-                }
-            }
+            let (p, dp) = newton_value_and_derivative(&table.coef[..2 * self.window], |k| t.minus_f64_s(self.epochs_s[f + k / 2]));
             return StateKm { position_km: [p[0], p[1], p[2]], velocity_km_s: [dp[0], dp[1], dp[2]] };
         }
         // Scratch arrays on the stack sized for the window: small windows
@@ -655,11 +648,7 @@ impl DiscreteStates {
         // the results are those of the per-axis routines bit for bit, and
         // the divisions by the shared node differences vectorise).
         let mut s = StateKm::default();
-        let (mut p, mut v) = ([[0.0f64; LANES]; CAP], [[0.0f64; LANES]; CAP]);
-        for (j, st) in self.states[f..f + w].iter().enumerate() {
-            p[j] = [st[0], st[1], st[2], 0.0];
-            v[j] = [st[3], st[4], st[5], 0.0];
-        }
+        let (p, v) = self.window_lanes::<CAP>(f);
         if self.hermite {
             let (val, der) = hermite_at_zero_lanes::<CAP2>(x, &p[..w], &v[..w]);
             s.position_km = [val[0], val[1], val[2]];
@@ -704,11 +693,19 @@ fn lagrange_at_zero_lanes<const CAP: usize>(x: &[f64], y: &[[f64; LANES]]) -> [f
 /// scalar routine's operations.
 /// `CAP2` ≥ `2 · x.len()` sizes the scratch arrays.
 fn hermite_at_zero_lanes<const CAP2: usize>(x: &[f64], y: &[[f64; LANES]], dy: &[[f64; LANES]]) -> ([f64; LANES], [f64; LANES]) {
-    let n = 2 * x.len();
     let coef = hermite_coefficients_lanes::<CAP2>(x, y, dy);
+    newton_value_and_derivative(&coef[..2 * x.len()], |k| 0.0 - x[k / 2])
+}
+
+/// Value and derivative of a Newton-form polynomial with coefficients
+/// `coef` (one lane per ordinate) at the point whose distances to the
+/// nodes are `t_minus_node(k)` (t − z_k), by nested multiplication.
+#[inline]
+fn newton_value_and_derivative(coef: &[[f64; LANES]], t_minus_node: impl Fn(usize) -> f64) -> ([f64; LANES], [f64; LANES]) {
+    let n = coef.len();
     let (mut p, mut dp) = (coef[n - 1], [0.0f64; LANES]);
     for k in (0..n - 1).rev() {
-        let mz = 0.0 - x[k / 2];
+        let mz = t_minus_node(k);
         for l in 0..LANES {
             dp[l] = dp[l] * mz + p[l];
             p[l] = p[l] * mz + coef[k][l];

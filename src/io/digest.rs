@@ -37,7 +37,7 @@ fn memo() -> &'static Mutex<HashMap<PathBuf, (Stamp, String)>> {
     MEMO.get_or_init(Default::default)
 }
 
-pub(crate) fn stamp(path: &Path) -> Option<Stamp> {
+fn stamp(path: &Path) -> Option<Stamp> {
     let m = std::fs::metadata(path).ok()?;
     Some((m.len(), m.modified().ok()))
 }
@@ -46,10 +46,17 @@ pub(crate) fn stamp(path: &Path) -> Option<Stamp> {
 /// around the read (`None` when the file changed meanwhile); pass both to
 /// [`remember`], possibly on another thread while the bytes are parsed.
 pub fn read_stamped(path: &Path) -> std::io::Result<(Vec<u8>, Option<Stamp>)> {
+    stamped(path, || std::fs::read(path), |b| b.len())
+}
+
+/// Runs `read` (which reads `path`) with the file's stamp taken around it:
+/// `None` when the size or modification time moved, or the length read
+/// (`len_of`) is not the file's size.
+pub(crate) fn stamped<T>(path: &Path, read: impl FnOnce() -> std::io::Result<T>, len_of: impl Fn(&T) -> usize) -> std::io::Result<(T, Option<Stamp>)> {
     let before = stamp(path);
-    let bytes = std::fs::read(path)?;
-    let st = before.filter(|st| st.0 == bytes.len() as u64 && stamp(path).as_ref() == Some(st));
-    Ok((bytes, st))
+    let value = read()?;
+    let st = before.filter(|st| st.0 == len_of(&value) as u64 && stamp(path).as_ref() == Some(st));
+    Ok((value, st))
 }
 
 /// Hashes bytes read by [`read_stamped`] (or a loader reading the same

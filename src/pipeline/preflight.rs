@@ -96,7 +96,7 @@ struct Facts {
 }
 
 impl Facts {
-    fn add<S: AsRef<str>, K: AsRef<str>>(&mut self, days: &[Option<i64>], fracs: &[Option<f64>], codes: &[Option<S>], codes2: Option<&[Option<S>]>, kinds: Option<&[Option<K>]>) {
+    fn add(&mut self, days: &[Option<i64>], fracs: &[Option<f64>], codes: &[Option<&str>], codes2: Option<&[Option<&str>]>, kinds: Option<&[Option<&str>]>) {
         if self.rows == 0 {
             self.first_mjd = f64::INFINITY;
             self.last_mjd = f64::NEG_INFINITY;
@@ -125,9 +125,9 @@ impl Facts {
             self.first_mjd = self.first_mjd.min(t);
             self.last_mjd = self.last_mjd.max(t);
             *day_rows.entry(d).or_default() += 1;
-            note(&mut c1, codes[i].as_ref().map(AsRef::as_ref), d);
+            note(&mut c1, codes[i], d);
             if let Some(codes2) = codes2 {
-                note(&mut c2, codes2[i].as_ref().map(AsRef::as_ref), d);
+                note(&mut c2, codes2[i], d);
             }
         }
         for (d, n) in day_rows {
@@ -142,7 +142,7 @@ impl Facts {
             }
         }
         if let Some(k) = kinds {
-            for k in k.iter().flatten().map(AsRef::as_ref) {
+            for &k in k.iter().flatten() {
                 if !self.kinds.contains(k) {
                     self.kinds.insert(k.to_string());
                 }
@@ -363,7 +363,7 @@ fn preflight_pulsar(file: &PipelineFile, input: Option<&Path>, p: &mut Preflight
     let (lp, scanned) = load_and_scan(p, input_path, || super::pulsar::load_pulsar(file), |lp| &lp.input_path, |df, f, at, facts, ids| {
         let i = super::pulsar::read_pulsar_input(df, f)?;
         ids.check(&i.obs_id, at, f)?;
-        facts.add::<&str, &str>(&i.day, &i.frac, &i.site, None, None);
+        facts.add(&i.day, &i.frac, &i.site, None, None);
         Ok(())
     })?;
     p.add(Level::Ok, format!("kernels, EOP, stations{} loaded", if lp.ctx.clocks.is_empty() { "" } else { ", clock tables" }));

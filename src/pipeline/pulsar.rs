@@ -353,11 +353,7 @@ pub fn read_pulsar_input<'a>(df: &'a DataFrame, path: &Path) -> Result<PulsarInp
 
 /// Computes every row of a batch: results in input order (Err = reject reason).
 pub fn compute_pulsar(lp: &mut LoadedPulsar, input: &PulsarInput) -> Vec<Result<ArrivalResult, String>> {
-    // Grid the celestial pole, TDB − TT and the Shapiro bodies over the
-    // batch's span.
-    lp.ctx.earth.cover_utc_days(input.day.iter().flatten().copied());
-    let ids: Vec<i32> = lp.ctx.shapiro.iter().map(|b| b.naif_id).collect();
-    lp.ctx.ephemeris.cover_body_grids_utc_days(&ids, input.day.iter().flatten().copied());
+    lp.ctx.cover_batch_days(&input.day);
     let n = input.obs_id.len();
     // Rows rejected before computing: (row, reason), usually none.
     let mut pre: Vec<(usize, String)> = Vec::new();
@@ -707,9 +703,7 @@ fn run_pulsar_partition_streamed(lp: &mut LoadedPulsar, input_path: &Path, outpu
     let days_df = read_slice(input_path, 0, n_rows, Some(vec!["arrival_mjd_day".into()]))?;
     let all_days: Vec<Option<i64>> = crate::io::Columns { df: &days_df, path: input_path }.i64("arrival_mjd_day")?;
     drop(days_df);
-    lp.ctx.earth.cover_utc_days(all_days.iter().flatten().copied());
-    let ids: Vec<i32> = lp.ctx.shapiro.iter().map(|b| b.naif_id).collect();
-    lp.ctx.ephemeris.cover_body_grids_utc_days(&ids, all_days.iter().flatten().copied());
+    lp.ctx.cover_batch_days(&all_days);
     // Pass 1: compute slices, raw residuals to temporary files.
     let [_, _, tmp_out, tmp_rej] = super::partial_paths(output_path);
     let mut w_out: Option<polars::io::parquet::write::BatchedWriter<std::fs::File>> = None;
@@ -883,9 +877,7 @@ pub fn synthesize(file: &PipelineFile, plan: &Path, out: &Path, noise: SynthNois
     let mut lp = load_pulsar(file)?;
     let rows = read_plan(plan)?;
     if let (Some(lo), Some(hi)) = (rows.iter().map(|r| r.mjd).reduce(f64::min), rows.iter().map(|r| r.mjd).reduce(f64::max)) {
-        lp.ctx.earth.set_cip_grid(lo.floor(), hi.ceil() + 1.0);
-        let ids: Vec<i32> = lp.ctx.shapiro.iter().map(|b| b.naif_id).collect();
-        lp.ctx.ephemeris.cover_body_grids_utc_days(&ids, [lo.floor() as i64, hi.ceil() as i64]);
+        lp.ctx.cover_batch_days(&[Some(lo.floor() as i64), Some(hi.ceil() as i64)]);
     }
     let ctx = &lp.ctx;
     let solved: Vec<Result<(i64, f64), String>> = rows

@@ -182,10 +182,7 @@ pub fn read_tracking_input<'a>(df: &'a DataFrame, path: &Path) -> Result<Trackin
 
 /// Computes every row (Err = reject reason), in input order.
 pub fn compute_tracking(lt: &mut LoadedTracking, input: &TrackingInput, check_values: bool) -> Vec<Result<TrackingResult, String>> {
-    lt.ctx.earth.cover_utc_days(input.day.iter().flatten().copied());
-    let ids: Vec<i32> = lt.ctx.shapiro.iter().map(|b| b.naif_id).collect();
-    lt.ctx.ephemeris.cover_body_grids_utc_days(&ids, input.day.iter().flatten().copied());
-    lt.ctx.ephemeris.cover_earth_grid_utc_days(input.day.iter().flatten().copied());
+    lt.ctx.cover_batch_days(&input.day);
     let n = input.obs_id.len();
     let mut out: Vec<Result<TrackingResult, String>> = Vec::with_capacity(n);
     let mut rows: Vec<Measurement> = Vec::with_capacity(n);

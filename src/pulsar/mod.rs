@@ -136,6 +136,16 @@ impl PulsarContext {
         Ok((v.offset_s, v.extrapolated))
     }
 
+    /// Grids the celestial pole, TDB − TT and the Shapiro bodies' positions
+    /// over a batch's arrival days (UTC MJD; see
+    /// [`crate::earth::EarthModel::cover_utc_days`] and
+    /// [`crate::ephemeris::Ephemeris::cover_body_grids_utc_days`]).
+    pub fn cover_batch_days(&mut self, days_mjd_utc: &[Option<i64>]) {
+        self.earth.cover_utc_days(days_mjd_utc.iter().flatten().copied());
+        let ids: Vec<i32> = self.shapiro.iter().map(|b| b.naif_id).collect();
+        self.ephemeris.cover_body_grids_utc_days(&ids, days_mjd_utc.iter().flatten().copied());
+    }
+
     /// All delays, the BAT and the spin residual for one arrival time.
     ///
     /// # Errors

@@ -20,3 +20,12 @@ pub use epoch::{Epoch, TAI_MINUS_GPS_FS, TT_MINUS_TAI_FS, TimeScale, TimeScales,
 pub use error::TimeError;
 pub use leap::{ExpiryPolicy, LeapSecondTable};
 pub use parse::parse_epoch;
+
+/// First and last of a batch's UTC days (MJD) for sizing its grids, leaving
+/// out days outside MJD 40 000 – 100 000 (1968–2132: their rows are
+/// rejected later, and one wild value must not make a huge grid); `None`
+/// when no day is left.
+pub fn batch_day_span(days_mjd_utc: impl IntoIterator<Item = i64>) -> Option<(i64, i64)> {
+    let (lo, hi) = days_mjd_utc.into_iter().filter(|d| (40_000..100_000).contains(d)).fold((i64::MAX, i64::MIN), |(lo, hi), d| (lo.min(d), hi.max(d)));
+    (lo <= hi).then_some((lo, hi))
+}

@@ -232,11 +232,11 @@ impl TrackingContext {
         // Exact states in one pass each, the observer term taken from the
         // previous state of this station (≤ 0.1 s away: the state's own TDB
         // is within 2e-11 s of the asked epoch), stepped to that epoch along
-        // its velocity (EarthModel::station_state_at_tdb_hinted).
+        // its velocity (EarthModel::station_state_at_hinted).
         let mut last: Option<crate::earth::StationState> = None;
         let up = solve_backward_anchored(&t2, &x_sc, &sh_up, down.light_time_s, &anchor, |t| {
             let hint_s = last.as_ref().map_or(s0.observer_term_s, |s| s.observer_term_s);
-            let s = self.earth.station_state_at_tdb_hinted(&self.ephemeris, tx, t, hint_s).map_err(|e| format!("geometry unavailable: {e}"))?;
+            let s = self.earth.station_state_at_hinted(&self.ephemeris, tx, t, hint_s).map_err(|e| format!("geometry unavailable: {e}"))?;
             let dt_s = ratio_to_f64(t.label_fs() - s.tdb.label_fs(), FS_PER_S);
             let out = (s.bcrs_position_m + s.bcrs_velocity_m_s * dt_s, s.bcrs_velocity_m_s);
             last = Some(s);
@@ -271,6 +271,18 @@ impl TrackingContext {
         let ts = TdbSeconds::from_epoch(t).map_err(|e| e.to_string())?;
         let u_km2_s2 = self.field.potential_km2_s2(&self.ephemeris, &ts, &[x[0] / 1e3, x[1] / 1e3, x[2] / 1e3]).map_err(|e| e.to_string())?;
         Ok(crate::time::clock_rate::proper_time_rate_offset(u_km2_s2 * 1e6, v.norm()) + L_B)
+    }
+
+    /// Grids the celestial pole, TDB − TT, the Shapiro bodies' positions and
+    /// the Earth's state over a batch's reception days (UTC MJD; see
+    /// [`EarthModel::cover_utc_days`],
+    /// [`Ephemeris::cover_body_grids_utc_days`] and
+    /// [`Ephemeris::cover_earth_grid_utc_days`]).
+    pub fn cover_batch_days(&mut self, days_mjd_utc: &[Option<i64>]) {
+        self.earth.cover_utc_days(days_mjd_utc.iter().flatten().copied());
+        let ids: Vec<i32> = self.shapiro.iter().map(|b| b.naif_id).collect();
+        self.ephemeris.cover_body_grids_utc_days(&ids, days_mjd_utc.iter().flatten().copied());
+        self.ephemeris.cover_earth_grid_utc_days(days_mjd_utc.iter().flatten().copied());
     }
 
     /// Computes one measurement.
