@@ -177,16 +177,16 @@ pub fn itrs_to_gcrs(tt_jd: (f64, f64), ut1_jd: (f64, f64), cip: CipXys, eop: &Eo
 pub fn era_rad(ut1_jd: (f64, f64)) -> f64 {
     const DJ00: f64 = 2_451_545.0;
     const D2PI: f64 = std::f64::consts::TAU;
-    let (d1, d2) = if ut1_jd.0 < ut1_jd.1 { ut1_jd } else { (ut1_jd.1, ut1_jd.0) };
-    let t = d1 + (d2 - DJ00);
-    let frac = |x: f64| if x.abs() < 4.5e15 { x - (x as i64) as f64 } else { x % 1.0 };
-    let f = frac(d1) + frac(d2);
+    let (d1_days, d2_days) = if ut1_jd.0 < ut1_jd.1 { ut1_jd } else { (ut1_jd.1, ut1_jd.0) };
+    let t_days = d1_days + (d2_days - DJ00);
+    let frac_days = |x: f64| if x.abs() < 4.5e15 { x - (x as i64) as f64 } else { x % 1.0 };
+    let f_days = frac_days(d1_days) + frac_days(d2_days);
     // iauAnp: into [0, 2π).
-    let mut w = (D2PI * (f + 0.7790572732640 + 0.00273781191135448 * t)) % D2PI;
-    if w < 0.0 {
-        w += D2PI;
+    let mut angle_rad = (D2PI * (f_days + 0.7790572732640 + 0.00273781191135448 * t_days)) % D2PI;
+    if angle_rad < 0.0 {
+        angle_rad += D2PI;
     }
-    w
+    angle_rad
 }
 
 impl TerrestrialToCelestial {
