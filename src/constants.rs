@@ -127,7 +127,7 @@ mod tests {
         let c = Constants::builtin();
         assert_eq!(c.ephemeris.name, "DE421");
         // GM_sun, DE421 header (au³/d² × au³/86400²): 1.32712440041e11 km³/s²
-        // to 12 digits (REFERENCE.md §8, "from memory"; confirmed by the DE421 file).
+        // to 12 digits (from memory; confirmed by the DE421 file header, constant GMS).
         let gm = c.ephemeris.gm_km3_s2("sun").unwrap();
         assert!((gm - 1.32712440041e11).abs() < 1.0, "{gm}");
         assert_eq!(c.ephemeris.gm_km3_s2("10"), Some(gm));

@@ -7,20 +7,27 @@
 //! must be validated independently before operational use; local mission
 //! rules and licensed practice take precedence.
 
-pub mod constants;
-pub mod delays;
-pub mod diff;
-pub mod earth;
-pub mod ephemeris;
+// Layers, lowest first; a module uses only modules above it in this list
+// (checked by `tests/layers.rs`).
 pub mod interp;
-pub mod io;
-pub mod light_time;
+pub mod parallel;
+pub mod reject;
+pub mod stats;
 pub mod model_cache;
-pub mod pipeline;
-pub mod plots;
-pub mod pulsar;
+pub mod io;
 pub mod time;
+pub mod constants;
+pub mod ephemeris;
+pub mod earth;
+pub mod delays;
+pub mod light_time;
+pub mod pulsar;
 pub mod tracking;
+pub mod plots;
+pub mod diff;
+pub mod pipeline;
+pub mod kinds;
+pub mod commands;
 
 /// Deterministic pseudo-random numbers for the unit tests: Marsaglia's
 /// xorshift64 with the shift triple (13, 7, 17) (G. Marsaglia, "Xorshift

@@ -7,7 +7,7 @@ use common::*;
 
 use std::path::{Path, PathBuf};
 
-use lapse::pipeline::batch::BatchEngine;
+use lapse::commands::engine::BatchEngine;
 
 fn input_of(pipeline: &Path) -> PathBuf {
     lapse::pipeline::PipelineFile::read(pipeline).unwrap().input_path().unwrap()

@@ -78,9 +78,9 @@ fn pipeline_toml() {
         let seed = std::fs::read(root().join(p)).unwrap();
         fuzz_bytes(p, &seed, |b| {
             if let Ok(f) = lapse::pipeline::PipelineFile::from_text(text(b), Path::new("fuzz.toml")) {
-                let _ = f.parse::<lapse::pipeline::pulsar::PulsarPipeline>();
-                let _ = f.parse::<lapse::pipeline::tracking::TrackingPipeline>();
-                let _ = f.parse::<lapse::pipeline::TimescalesPipeline>();
+                let _ = f.parse::<lapse::kinds::pulsar::PulsarPipeline>();
+                let _ = f.parse::<lapse::kinds::tracking::TrackingPipeline>();
+                let _ = f.parse::<lapse::kinds::timescales::TimescalesPipeline>();
             }
         });
     }

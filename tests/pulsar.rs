@@ -11,7 +11,7 @@ use std::path::{Path, PathBuf};
 
 use lapse::delays::Source;
 use lapse::pipeline::PipelineFile;
-use lapse::pipeline::pulsar::load_pulsar;
+use lapse::kinds::pulsar::Pulsar;
 use lapse::time::TimeScale;
 use polars::prelude::*;
 
@@ -56,7 +56,7 @@ fn delays_match_erfa_and_jplephem() {
         ("time_scale = \"site\"", "time_scale = \"utc\""),
         ("shapiro_bodies = [\"sun\", \"venus\", \"jupiter\", \"saturn\", \"uranus\", \"neptune\"]", "shapiro_bodies = [\"sun\"]"),
     ]);
-    let mut lp = load_pulsar(&PipelineFile::read(&p).unwrap()).unwrap();
+    let mut lp = Pulsar::load(&PipelineFile::read(&p).unwrap()).unwrap();
     let text = std::fs::read_to_string(root().join("tests/fixtures/pulsar_sweep.csv")).unwrap();
     let rows: Vec<Vec<&str>> = text.lines().filter(|l| !l.starts_with('#')).skip(1).map(|l| l.split(',').collect()).collect();
     assert!(rows.len() >= 1000);
@@ -152,9 +152,16 @@ fn every_row_is_accounted_for() {
     for needle in ["unknown site", "arrival_mjd_frac out of range", "freq_mhz invalid", "sigma_us invalid", "no clock chain for site 'OSPREY-3'", "clock correction unavailable", "missing value: site is null"] {
         assert!(reasons.iter().any(|r| r.contains(needle)), "no reason with '{needle}': {reasons:?}");
     }
-    // The summary counts rejects by reason.
+    // Every reject carries a stable code beside its message.
+    let codes: Vec<String> = rej.column("reason_code").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
+    for code in ["unknown_station", "fraction_out_of_range", "invalid_value", "clock_unavailable", "missing_value"] {
+        assert!(codes.iter().any(|c| c == code), "no reason_code '{code}': {codes:?}");
+    }
+    assert!(codes.iter().all(|c| lapse::reject::RejectCode::parse(c).is_some()), "{codes:?}");
+    // The summary counts rejects by code.
     let stdout = String::from_utf8_lossy(&o.stdout);
     assert!(stdout.contains("rejected   7"), "{stdout}");
+    assert!(stdout.contains("clock_unavailable"), "{stdout}");
 }
 
 #[test]
@@ -208,8 +215,8 @@ fn fast_path_agrees_with_direct_path() {
     const FAST_VS_DIRECT_POSITION_M: f64 = 1e-3;
     let d = tmpdir("fastpath");
     let p = pipeline(&d, Path::new("/unused.parquet"), &[]);
-    let direct = load_pulsar(&PipelineFile::read(&p).unwrap()).unwrap();
-    let mut fast = load_pulsar(&PipelineFile::read(&p).unwrap()).unwrap();
+    let direct = Pulsar::load(&PipelineFile::read(&p).unwrap()).unwrap();
+    let mut fast = Pulsar::load(&PipelineFile::read(&p).unwrap()).unwrap();
     fast.ctx.cover_batch_days(&[Some(58_600), Some(60_900)]);
     let st = direct.ctx.stations.get("KESTREL-1").unwrap().clone();
     let (mut mt, mut mp) = (0.0f64, 0.0f64);

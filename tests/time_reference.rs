@@ -31,7 +31,7 @@ fn iau_defining_constants() {
     // IAU 2006 Resolution B3: L_B = 1.550519768e-8, TDB0 = -6.55e-5 s (defining).
     assert_eq!(L_B, 1.550519768e-8);
     assert_eq!(TDB0_S, -6.55e-5);
-    // IAU 2012 Resolution B2: au = 149 597 870 700 m; au/c = 499.004784 s (REFERENCE.md §5).
+    // IAU 2012 Resolution B2: au = 149 597 870 700 m; au/c = 499.004784 s (computed from the two exact values).
     let au_light_s = lapse::constants::AU_M / lapse::constants::C_M_S;
     assert!((au_light_s - 499.004784).abs() < 1e-6, "{au_light_s}");
 }
@@ -175,7 +175,7 @@ fn utc_tdb_utc_round_trip_1972_2100() {
 
 #[test]
 fn lorentz_factor_at_0_98_c() {
-    // Common practice (REFERENCE.md §7): γ(0.98 c) = 1/√(1 − 0.98²) ≈ 5.025.
+    // Common practice (the Lorentz factor 1/√(1 − β²)): γ(0.98 c) = 1/√(1 − 0.98²) ≈ 5.025.
     let g = lapse::time::clock_rate::lorentz_factor(0.98 * lapse::constants::C_M_S).unwrap();
     assert!((g - 5.025).abs() < 1e-3, "{g}");
     assert!((g - 1.0 / (1.0f64 - 0.98 * 0.98).sqrt()).abs() < 1e-12);

@@ -39,8 +39,8 @@ fn tdb(et: f64) -> Epoch {
     Epoch::from_uniform_fs(TimeScale::Tdb, J2000_FS + w as i128 * FS_PER_S + seconds_to_fs(et - w).unwrap()).unwrap()
 }
 
-fn state(eph: &Ephemeris, id: i32, t: &Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String> {
-    let s = eph.state_ssb(id, &TdbSeconds::from_epoch(t).unwrap()).map_err(|e| e.to_string())?;
+fn state(eph: &Ephemeris, id: i32, t: &Epoch) -> Result<(Vector3<f64>, Vector3<f64>), Box<dyn std::error::Error>> {
+    let s = eph.state_ssb(id, &TdbSeconds::from_epoch(t).unwrap())?;
     Ok((Vector3::from(s.position_km) * 1e3, Vector3::from(s.velocity_km_s) * 1e3))
 }
 
@@ -124,7 +124,7 @@ fn shapiro_1964_venus_radar_order_of_magnitude() {
 #[test]
 fn gps_clock_facts() {
     use lapse::time::clock_rate::{eccentricity_clock_term_s, proper_time_rate_offset};
-    // Common practice (REFERENCE.md §7): a GPS satellite clock gains ≈ 38.6 µs/day
+    // Common practice (Ashby 2003, Living Rev. Relativity 6, 1, sec. 5): a GPS satellite clock gains ≈ 38.6 µs/day
     // on the ground (+45.8 gravitational, −7.2 velocity). GM_E = 3.986004418e14
     // m³/s², a = 26 561.75 km (from memory); geoid potential W0 = 6.26368560e7
     // m²/s² (IERS Conventions 2010, table 1.1), which includes the rotation.
@@ -182,7 +182,7 @@ fn doppler_sign_and_scale_follow_the_range() {
     let o = lapse(&["run", pipeline(&d, &input).to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     let out = read(&d.join("out.parquet"));
-    let c: Vec<f64> = out.column("computed").unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect();
+    let c = by_unit(&out, "computed");
     let rate = (c[1] - c[0]) / 60.0;
     let doppler_fd = 880.0 / 749.0 * 7.1644e9 * rate;
     assert!(c[2] > 0.0 && rate > 0.0, "receding: positive Doppler");
@@ -213,6 +213,10 @@ fn every_tracking_row_is_accounted_for() {
     let reasons: Vec<String> = rej.column("reason").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
     for needle in ["unknown kind 'range_xyz'", "unknown station", "count_s invalid", "spacecraft ephemeris", "value invalid: NaN", "light time -3 s must be positive", "three-way Doppler needs a tx_station", "missing value: rx_station is null"] {
         assert!(reasons.iter().any(|r| r.contains(needle)), "no reason with '{needle}': {reasons:?}");
+    }
+    let codes: Vec<String> = rej.column("reason_code").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
+    for code in ["unknown_observable", "unknown_station", "invalid_value", "geometry_unavailable", "inconsistent_row", "missing_value"] {
+        assert!(codes.iter().any(|c| c == code), "no reason_code '{code}': {codes:?}");
     }
     // One-way and absent legs are null, not zero.
     let up = out.column("light_time_up_s").unwrap();
@@ -293,7 +297,7 @@ fn troposphere_is_opt_in_and_sized_right() {
     let (a, b) = (read(&d.join("out.parquet")), read(&d.join("tropo.parquet")));
     let col = |df: &DataFrame, c: &str| -> Vec<f64> { df.column(c).unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect() };
     let kinds: Vec<String> = b.column("kind").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
-    let (ta, tb, ca, cb) = (col(&a, "troposphere_s"), col(&b, "troposphere_s"), col(&a, "computed"), col(&b, "computed"));
+    let (ta, tb, ca, cb) = (col(&a, "troposphere_s"), col(&b, "troposphere_s"), by_unit(&a, "computed"), by_unit(&b, "computed"));
     assert!(ta.iter().all(|x| *x == 0.0), "off by default");
     for i in 0..b.height() {
         if kinds[i] == "light_time_2way" {
@@ -314,8 +318,8 @@ fn demo_residuals_are_white_at_the_injected_noise() {
     // normalised residuals have χ²/N ≈ 1 per kind (N ≈ 35–320: allow ±40 %).
     let out = read(&root().join("tests/golden/tracking_demo.parquet"));
     let kinds: Vec<String> = out.column("kind").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
-    let r: Vec<f64> = out.column("residual").unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect();
-    let s: Vec<f64> = out.column("sigma").unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect();
+    let r = by_unit(&out, "residual");
+    let s = by_unit(&out, "sigma");
     for kind in ["light_time_2way", "doppler_2way", "doppler_3way"] {
         let z: Vec<f64> = (0..r.len()).filter(|i| kinds[*i] == kind).map(|i| (r[i] / s[i]).powi(2)).collect();
         let chi2_n = z.iter().sum::<f64>() / z.len() as f64;
@@ -336,11 +340,11 @@ fn fast_path_agrees_with_direct_light_time_solution() {
     const FAST_VS_DIRECT_TIME_S: f64 = 1e-12;
     const FAST_VS_DIRECT_POSITION_M: f64 = 1e-3;
     use lapse::pipeline::PipelineFile;
-    use lapse::pipeline::tracking::load_tracking;
+    use lapse::kinds::tracking::Tracking;
     use lapse::tracking::observables::{Kind, Measurement};
     let p = root().join("pipelines/tracking_demo.toml");
-    let direct = load_tracking(&PipelineFile::read(&p).unwrap()).unwrap().ctx;
-    let mut fast = load_tracking(&PipelineFile::read(&p).unwrap()).unwrap().ctx;
+    let direct = Tracking::load(&PipelineFile::read(&p).unwrap()).unwrap().ctx;
+    let mut fast = Tracking::load(&PipelineFile::read(&p).unwrap()).unwrap().ctx;
     let obs = read(&root().join("data/demo/tracking_obs.parquet"));
     let text = |c: &str| -> Vec<Option<String>> { obs.column(c).unwrap().str().unwrap().iter().map(|s| s.map(str::to_string)).collect() };
     let num = |c: &str| -> Vec<f64> { obs.column(c).unwrap().cast(&DataType::Float64).unwrap().f64().unwrap().iter().map(|v| v.unwrap_or(f64::NAN)).collect() };
@@ -368,8 +372,8 @@ fn fast_path_agrees_with_direct_light_time_solution() {
         let t2s = TdbSeconds::from_epoch(&down.t_tx).unwrap();
         let sh_up = ShapiroSet::for_receiver(&direct.ephemeris, &direct.shapiro, direct.ppn_gamma, &t2s, &down.x_tx_m).unwrap();
         let up = solve_backward(&down.t_tx, &down.x_tx_m, &sh_up, |t| {
-            let s = direct.earth.station_state_at(&direct.ephemeris, tx, t).map_err(|e| e.to_string())?;
-            Ok((s.bcrs_position_m, s.bcrs_velocity_m_s))
+            let s = direct.earth.station_state_at(&direct.ephemeris, tx, t)?;
+            Ok::<_, Box<dyn std::error::Error>>((s.bcrs_position_m, s.bcrs_velocity_m_s))
         })
         .unwrap();
         let bounce_s = (got.bounce_tdb.label_fs() - down.t_tx.label_fs()) as f64 * 1e-15;

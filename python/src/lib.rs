@@ -19,7 +19,7 @@ use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::{Arc, Mutex, OnceLock};
 
 use lapse::pipeline::PipelineFile;
-use lapse::pipeline::batch::BatchEngine;
+use lapse::commands::engine::BatchEngine;
 use polars::prelude::{CompatLevel, DataFrame};
 use polars_arrow::array::{Array, StructArray};
 use polars_arrow::datatypes::{ArrowDataType, Field as ArrowField};

@@ -60,6 +60,29 @@ impl Source {
     }
 }
 
+/// Einstein delay at an observer: TDB − TT there (s), the accumulated
+/// gravitational redshift and time dilation of the observer's clock against
+/// the barycentric coordinate time scale, including the observer's
+/// topocentric term v_E·x/c².
+///
+/// `tdb` and `tt`: the same event in TDB and in TT (the two scales' exact
+/// femtosecond labels, as [`crate::earth::EarthModel::station_state`] gives
+/// them).
+///
+/// # Accuracy
+/// Exact difference of the labels (≤ 1e-15 s from the f64 result); the
+/// model's accuracy is that of the TDB − TT series: ≈ 10 ns 1600–2200 at the
+/// geocentre (Fairhead & Bretagnon 1990), topocentric term to ≈ 1e-12 s.
+///
+/// # References
+/// Backer & Hellings 1986, ARA&A 24, 537, eq. 3 (Einstein delay Δ_E⊙);
+/// Fairhead & Bretagnon 1990, A&A 229, 240 (the TDB − TT series);
+/// IERS Conventions 2010, ch. 10, eq. 10.6 and 10.10 (topocentric term).
+pub fn einstein_s(tdb: &crate::time::Epoch, tt: &crate::time::Epoch) -> f64 {
+    use crate::time::femto::{FS_PER_S, ratio_to_f64};
+    ratio_to_f64(tdb.label_fs() - tt.label_fs(), FS_PER_S)
+}
+
 /// Roemer delay r·n̂/c (s): the light travel time from the observer to the
 /// barycentre projected on the source direction.
 ///
@@ -186,10 +209,23 @@ pub const SHAPIRO_BODY_NAMES: &[(&str, i32, &str)] = &[
     ("neptune", 8, "neptune_barycenter"),
 ];
 
+/// Errors of the Shapiro body list.
+#[derive(Debug, thiserror::Error)]
+pub enum DelaysError {
+    #[error("at most {MAX_SHAPIRO_BODIES} Shapiro bodies")]
+    TooManyBodies,
+    #[error("unknown Shapiro body '{name}' (known: {known})")]
+    UnknownBody { name: String, known: String },
+    #[error("Shapiro body '{0}' listed twice")]
+    Twice(String),
+    #[error("no GM for '{key}' in the constants of {constants}")]
+    NoGm { key: String, constants: String },
+}
+
 /// Resolves Shapiro body names against the ephemeris constants.
-pub fn shapiro_bodies(names: &[String], constants: &crate::constants::EphemerisConstants) -> Result<Vec<ShapiroBody>, String> {
+pub fn shapiro_bodies(names: &[String], constants: &crate::constants::EphemerisConstants) -> Result<Vec<ShapiroBody>, DelaysError> {
     if names.len() > MAX_SHAPIRO_BODIES {
-        return Err(format!("at most {MAX_SHAPIRO_BODIES} Shapiro bodies"));
+        return Err(DelaysError::TooManyBodies);
     }
     let mut out = Vec::with_capacity(names.len());
     for n in names {
@@ -197,11 +233,11 @@ pub fn shapiro_bodies(names: &[String], constants: &crate::constants::EphemerisC
         let (name, id, ckey) = SHAPIRO_BODY_NAMES
             .iter()
             .find(|(b, _, _)| *b == key)
-            .ok_or_else(|| format!("unknown Shapiro body '{n}' (known: {})", SHAPIRO_BODY_NAMES.iter().map(|b| b.0).collect::<Vec<_>>().join(", ")))?;
+            .ok_or_else(|| DelaysError::UnknownBody { name: n.clone(), known: SHAPIRO_BODY_NAMES.iter().map(|b| b.0).collect::<Vec<_>>().join(", ") })?;
         if out.iter().any(|b: &ShapiroBody| b.name == *name) {
-            return Err(format!("Shapiro body '{n}' listed twice"));
+            return Err(DelaysError::Twice(n.clone()));
         }
-        let gm_km3_s2 = constants.gm_km3_s2(ckey).ok_or_else(|| format!("no GM for '{ckey}' in the constants of {}", constants.name))?;
+        let gm_km3_s2 = constants.gm_km3_s2(ckey).ok_or_else(|| DelaysError::NoGm { key: ckey.to_string(), constants: constants.name.clone() })?;
         out.push(ShapiroBody { name: name.to_string(), naif_id: *id, gm_m3_s2: gm_km3_s2 * 1e9 });
     }
     Ok(out)
@@ -216,10 +252,12 @@ mod tests {
 
     #[test]
     fn shapiro_check_values() {
-        // 2GM_sun/c³ ≈ 9.850982 µs (REFERENCE.md §4, computed).
+        // 2GM_sun/c³ ≈ 9.850982 µs (computed from the DE421 GM; common practice:
+        // Lorimer & Kramer 2005, sec. 8.2.3, quote T☉ = GM☉/c³ = 4.925490947 µs).
         let two_gm_c3 = 2.0 * GM_SUN_M3_S2 / C_M_S.powi(3);
         assert!((two_gm_c3 - 9.850982e-6).abs() < 1e-12, "{two_gm_c3}");
-        // Source 1° from the Sun, Sun at 1 au: Δ ≈ 86.6 µs (REFERENCE.md §4).
+        // Source 1° from the Sun, Sun at 1 au: Δ ≈ 86.6 µs (Backer & Hellings
+        // 1986, eq. 6, evaluated by hand: 2T☉·ln(2/θ²) with θ = 1°, from memory).
         let sun = Vector3::new(AU_M, 0.0, 0.0);
         let n = Vector3::new(1f64.to_radians().cos(), 1f64.to_radians().sin(), 0.0);
         let d = shapiro_infinite_s(GM_SUN_M3_S2, 1.0, &sun, &n);

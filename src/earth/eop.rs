@@ -188,8 +188,8 @@ impl EopTable {
 }
 
 impl crate::time::Ut1Source for EopTable {
-    fn ut1_minus_tai_s(&self, leaps: &LeapSecondTable, utc: &Epoch) -> Result<f64, String> {
-        self.at_utc(leaps, utc).map(|v| v.ut1_minus_tai_s).map_err(|e| e.to_string())
+    fn ut1_minus_tai_s(&self, leaps: &LeapSecondTable, utc: &Epoch) -> Result<f64, crate::time::TimeError> {
+        self.at_utc(leaps, utc).map(|v| v.ut1_minus_tai_s).map_err(|e| crate::time::TimeError::Ut1 { reason: e.to_string() })
     }
 }
 

@@ -200,6 +200,17 @@ impl TerrestrialToCelestial {
 mod tests {
     use super::*;
 
+    #[test]
+    fn model_ids_name_the_locked_series_crate() {
+        // The cached tables (crate::model_cache) are keyed by model id: the
+        // ids must follow the version of the crate that evaluates the series.
+        let lock = std::fs::read_to_string(concat!(env!("CARGO_MANIFEST_DIR"), "/Cargo.lock")).unwrap();
+        let v = lock.split("name = \"sofars\"\nversion = \"").nth(1).and_then(|r| r.split('"').next()).unwrap();
+        for id in [CIP_MODEL, crate::time::relativistic::TDB_MODEL] {
+            assert!(id.ends_with(&format!("sofars-{v}")), "{id} vs sofars {v}");
+        }
+    }
+
     /// Nodes sit at fixed multiples of the step, so the interpolated value at
     /// an epoch is bit-identical whichever span built the grid (batches may
     /// reuse a wider grid built earlier).

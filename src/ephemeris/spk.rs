@@ -5,7 +5,7 @@
 //! summary records); the file is memory-mapped, its Chebyshev segments
 //! index into the mapping, and we evaluate them ourselves, because anise's query epoch is an `f64` of TDB seconds past
 //! J2000, which resolves ≈ 0.1 µs in this century (≈ 3.6 mm of Earth
-//! motion; `REFERENCE.md` §10), above the 1 mm this tool needs.
+//! motion: 2^-52 · 8e8 s; IEEE 754-2008 binary64), above the 1 mm this tool needs.
 //!
 //! # References
 //! NAIF SPK Required Reading (`spk.req`), "Segments — The Fundamental SPK
@@ -362,7 +362,7 @@ impl SpkKernel {
             if !s.start_epoch_et_s.is_finite() || !s.end_epoch_et_s.is_finite() || s.end_epoch_et_s < s.start_epoch_et_s {
                 return Err(kernel_err(path, format!("segment {k} (target {}) has a bad coverage", s.target_id)));
             }
-            let seg_err = |m: String| kernel_err(path, format!("segment {k} (target {}, type {}): {m}", s.target_id, s.data_type_i));
+            let seg_err = |m: SegmentFormatError| kernel_err(path, format!("segment {k} (target {}, type {}): {m}", s.target_id, s.data_type_i));
             let data = match s.data_type_i {
                 2 | 3 => SegmentData::Chebyshev(parse_chebyshev(buf, first, raw.len(), s.data_type_i == 3).map_err(seg_err)?),
                 9 | 13 => SegmentData::Discrete(parse_discrete(raw, s.data_type_i == 13).map_err(seg_err)?),
@@ -490,37 +490,42 @@ impl std::fmt::Debug for KernelBytes {
 
 /// Types 2/3 in place: the records stay in the kernel's buffer `buf`,
 /// whose doubles `first .. first + n_doubles` are the segment.
-fn parse_chebyshev(buf: &Arc<KernelBytes>, first: usize, n_doubles: usize, with_velocity: bool) -> Result<ChebyshevData, String> {
+/// A malformed segment's data (the message says what is wrong).
+#[derive(Debug, thiserror::Error)]
+#[error("{0}")]
+struct SegmentFormatError(String);
+
+fn parse_chebyshev(buf: &Arc<KernelBytes>, first: usize, n_doubles: usize, with_velocity: bool) -> Result<ChebyshevData, SegmentFormatError> {
     if n_doubles < 4 + 5 {
-        return Err(format!("only {n_doubles} doubles"));
+        return Err(SegmentFormatError(format!("only {n_doubles} doubles")));
     }
     let seg = &buf.doubles()[first..first + n_doubles];
     let [init_s, interval_s, rsize, n] = [seg[n_doubles - 4], seg[n_doubles - 3], seg[n_doubles - 2], seg[n_doubles - 1]];
     if !init_s.is_finite() || !(interval_s.is_finite() && interval_s > 0.0) {
-        return Err(format!("bad directory: init {init_s}, interval {interval_s}"));
+        return Err(SegmentFormatError(format!("bad directory: init {init_s}, interval {interval_s}")));
     }
     if !(rsize.is_finite() && rsize >= 5.0 && rsize.fract() == 0.0 && n.is_finite() && n >= 1.0 && n.fract() == 0.0) {
-        return Err(format!("bad directory: record size {rsize}, records {n}"));
+        return Err(SegmentFormatError(format!("bad directory: record size {rsize}, records {n}")));
     }
     let (record_len, n_records) = (rsize as usize, n as usize);
     let comps = if with_velocity { 6 } else { 3 };
     if (record_len - 2) % comps != 0 {
-        return Err(format!("record size {record_len} is not 2 + {comps}·(degree + 1)"));
+        return Err(SegmentFormatError(format!("record size {record_len} is not 2 + {comps}·(degree + 1)")));
     }
     let n_coeffs = (record_len - 2) / comps;
     if n_coeffs > MAX_COEFFS {
-        return Err(format!("degree {} exceeds {}", n_coeffs - 1, MAX_COEFFS - 1));
+        return Err(SegmentFormatError(format!("degree {} exceeds {}", n_coeffs - 1, MAX_COEFFS - 1)));
     }
     if record_len.checked_mul(n_records).map(|x| x + 4) != Some(n_doubles) {
-        return Err(format!("{} records of {record_len} doubles do not fill the segment's {} doubles", n_records, n_doubles));
+        return Err(SegmentFormatError(format!("{} records of {record_len} doubles do not fill the segment's {} doubles", n_records, n_doubles)));
     }
     let records = &seg[..record_len * n_records];
     if records.iter().any(|x| !x.is_finite()) {
-        return Err("non-finite coefficient".into());
+        return Err(SegmentFormatError("non-finite coefficient".into()));
     }
     for r in records.chunks_exact(record_len) {
         if !(r[1] > 0.0) {
-            return Err(format!("record radius {} is not positive", r[1]));
+            return Err(SegmentFormatError(format!("record radius {} is not positive", r[1])));
         }
     }
     Ok(ChebyshevData { init_s, interval_s, record_len, n_records, n_coeffs, with_velocity, records: Arc::clone(buf), first })
@@ -533,29 +538,29 @@ fn parse_chebyshev(buf: &Arc<KernelBytes>, first: usize, n_doubles: usize, with_
 /// # References
 /// NAIF SPK Required Reading, "Type 9: Lagrange Interpolation — Unequal Time
 /// Steps" and "Type 13: Hermite Interpolation — Unequal Time Steps".
-fn parse_discrete(d: &[f64], hermite: bool) -> Result<DiscreteStates, String> {
+fn parse_discrete(d: &[f64], hermite: bool) -> Result<DiscreteStates, SegmentFormatError> {
     if d.len() < 2 + 7 {
-        return Err(format!("only {} doubles", d.len()));
+        return Err(SegmentFormatError(format!("only {} doubles", d.len())));
     }
     let n_f = d[d.len() - 1];
     let w_f = d[d.len() - 2];
     if !(n_f.is_finite() && n_f >= 2.0 && n_f.fract() == 0.0 && w_f.is_finite() && w_f >= 1.0 && w_f.fract() == 0.0) {
-        return Err(format!("bad trailer: {w_f}, {n_f}"));
+        return Err(SegmentFormatError(format!("bad trailer: {w_f}, {n_f}")));
     }
     let n = n_f as usize;
     // Type 9 stores the degree (window = degree + 1); type 13 the window − 1.
     let window = w_f as usize + 1;
     let dir = (n - 1) / 100;
     if n.checked_mul(7).map(|x| x + dir + 2) != Some(d.len()) {
-        return Err(format!("{n} states do not fill the segment's {} doubles", d.len()));
+        return Err(SegmentFormatError(format!("{n} states do not fill the segment's {} doubles", d.len())));
     }
     if window > n || window > MAX_WINDOW {
-        return Err(format!("window of {window} states with {n} states"));
+        return Err(SegmentFormatError(format!("window of {window} states with {n} states")));
     }
     let states: Vec<[f64; 6]> = (0..n).map(|i| std::array::from_fn(|k| d[6 * i + k])).collect();
     let epochs_s = d[6 * n..7 * n].to_vec();
     if epochs_s.windows(2).any(|w| !(w[1] > w[0])) || states.iter().flatten().chain(&epochs_s).any(|x| !x.is_finite()) {
-        return Err("epochs not increasing or values not finite".into());
+        return Err(SegmentFormatError("epochs not increasing or values not finite".into()));
     }
     Ok(DiscreteStates::new(epochs_s, states, window, hermite))
 }
@@ -618,7 +623,8 @@ impl DiscreteStates {
     /// # Accuracy
     /// Reproduces the states at the nodes exactly; between nodes it is the
     /// interpolating polynomial, checked against spiceypy on the same file
-    /// (`tests/tracking_reference.rs`).
+    /// (`tests/tracking.rs`, `type13_reader_matches_spice` and
+    /// `spice_written_type9_and_type13_files_read_as_spice_reads_them`).
     pub fn evaluate(&self, t: &TdbSeconds) -> StateKm {
         if !self.hermite_tables.is_empty() {
             // Type 13 with a small window: the window's table once, then a
@@ -968,7 +974,7 @@ mod tests {
     }
 
     /// A type 2 segment made of these doubles alone.
-    fn cheb(d: &[f64]) -> Result<ChebyshevData, String> {
+    fn cheb(d: &[f64]) -> Result<ChebyshevData, SegmentFormatError> {
         parse_chebyshev(&Arc::new(KernelBytes::Owned(d.to_vec(), d.len() * 8)), 0, d.len(), false)
     }
 }

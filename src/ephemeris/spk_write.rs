@@ -2,7 +2,9 @@
 //!
 //! lapse writes the DAF container itself rather than through anise 0.10.6,
 //! whose writer produces files that SPICE readers decode wrongly when the
-//! state count is a multiple of 100 (`REFERENCE.md` §10). Every file written
+//! state count is a multiple of 100 (found here: spiceypy decoded such files
+//! wrongly; NAIF SPK Required Reading, type 13, for the directory of every
+//! 100th epoch). Every file written
 //! here is read back by spiceypy in the tests.
 //!
 //! # References
@@ -10,7 +12,16 @@
 //! records, addresses; NAIF SPK Required Reading (`spk.req`): segment
 //! summary (ND = 2, NI = 6) and type 13 layout.
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
+
+/// Errors of writing a type 13 segment.
+#[derive(Debug, thiserror::Error)]
+pub enum SpkWriteError {
+    #[error("type 13 segment: {0}")]
+    Invalid(String),
+    #[error("cannot write {path}: {source}")]
+    Io { path: PathBuf, source: std::io::Error },
+}
 
 const RECORD: usize = 1024;
 const DOUBLES_PER_RECORD: usize = 128;
@@ -36,16 +47,16 @@ pub struct Type13Segment<'a> {
 
 /// Builds the bytes of an SPK file holding one type 13 segment
 /// (little-endian IEEE, "LTL-IEEE").
-pub fn type13_bytes(seg: &Type13Segment) -> Result<Vec<u8>, String> {
+pub fn type13_bytes(seg: &Type13Segment) -> Result<Vec<u8>, SpkWriteError> {
     let n = seg.epochs_s.len();
     if n < 2 || seg.states.len() != n {
-        return Err(format!("need ≥ 2 epochs and one state per epoch ({} epochs, {} states)", n, seg.states.len()));
+        return Err(SpkWriteError::Invalid(format!("need ≥ 2 epochs and one state per epoch ({} epochs, {} states)", n, seg.states.len())));
     }
     if !(1..=8).contains(&seg.window) || seg.window > n {
-        return Err(format!("window {} must be 1..=8 and ≤ the number of states", seg.window));
+        return Err(SpkWriteError::Invalid(format!("window {} must be 1..=8 and ≤ the number of states", seg.window)));
     }
     if seg.epochs_s.windows(2).any(|w| !(w[1] > w[0])) || seg.states.iter().flatten().chain(seg.epochs_s).any(|x| !x.is_finite()) {
-        return Err("epochs must increase strictly and all values be finite".into());
+        return Err(SpkWriteError::Invalid("epochs must increase strictly and all values be finite".into()));
     }
     // Segment data: states, epochs, directory (every 100th epoch), window − 1, N.
     let mut data: Vec<f64> = Vec::with_capacity(7 * n + n / 100 + 2);
@@ -100,9 +111,9 @@ pub fn type13_bytes(seg: &Type13Segment) -> Result<Vec<u8>, String> {
 }
 
 /// Writes an SPK file with one type 13 segment.
-pub fn write_type13(path: &Path, seg: &Type13Segment) -> Result<(), String> {
+pub fn write_type13(path: &Path, seg: &Type13Segment) -> Result<(), SpkWriteError> {
     let bytes = type13_bytes(seg)?;
-    std::fs::write(path, bytes).map_err(|e| format!("cannot write {}: {e}", path.display()))
+    std::fs::write(path, bytes).map_err(|source| SpkWriteError::Io { path: path.into(), source })
 }
 
 #[cfg(test)]

@@ -18,11 +18,36 @@
 
 use nalgebra::Vector3;
 
-use crate::delays::{C_M_S, shapiro_finite_s};
-use crate::ephemeris::{Ephemeris, TdbSeconds};
 use crate::delays::ShapiroBody;
-use crate::time::Epoch;
+use crate::delays::{C_M_S, shapiro_finite_s};
+use crate::ephemeris::{Ephemeris, EphemerisError, TdbSeconds};
+use crate::reject::{Coded, RejectCode};
 use crate::time::femto::seconds_to_fs;
+use crate::time::{Epoch, TimeError};
+
+/// Why a leg has no solution.
+#[derive(Debug, thiserror::Error)]
+pub enum LightTimeError {
+    #[error("light time is not finite")]
+    NotFinite,
+    #[error("light time does not converge to {LIGHT_TIME_TOL_S} s in {MAX_ITERATIONS} iterations")]
+    NotConverged,
+    #[error("transmission epoch out of range: {0}")]
+    Time(#[from] TimeError),
+    #[error("geometry unavailable: {0}")]
+    Geometry(#[from] EphemerisError),
+}
+
+impl Coded for LightTimeError {
+    fn reject_code(&self) -> RejectCode {
+        match self {
+            LightTimeError::NotFinite => RejectCode::NotFinite,
+            LightTimeError::NotConverged => RejectCode::NotConverged,
+            LightTimeError::Time(_) => RejectCode::TimeNotConvertible,
+            LightTimeError::Geometry(_) => RejectCode::GeometryUnavailable,
+        }
+    }
+}
 
 /// Convergence of the light time, s.
 pub const LIGHT_TIME_TOL_S: f64 = 1e-13;
@@ -57,12 +82,10 @@ pub struct ShapiroSet {
 impl ShapiroSet {
     /// Positions each body at its retarded time seen from the receiver at
     /// (`t_rx`, `x_rx_m`).
-    pub fn for_receiver(eph: &Ephemeris, bodies: &[ShapiroBody], ppn_gamma: f64, t_rx: &TdbSeconds, x_rx_m: &Vector3<f64>) -> Result<Self, String> {
+    pub fn for_receiver(eph: &Ephemeris, bodies: &[ShapiroBody], ppn_gamma: f64, t_rx: &TdbSeconds, x_rx_m: &Vector3<f64>) -> Result<Self, LightTimeError> {
         let mut out = Vec::with_capacity(bodies.len());
         for b in bodies {
-            let p = |t: &TdbSeconds| -> Result<Vector3<f64>, String> {
-                eph.shapiro_position_ssb_km(b.naif_id, t).map(|p| Vector3::from(p) * 1e3).map_err(|e| format!("geometry unavailable: {e}"))
-            };
+            let p = |t: &TdbSeconds| -> Result<Vector3<f64>, LightTimeError> { Ok(Vector3::from(eph.shapiro_position_ssb_km(b.naif_id, t)?) * 1e3) };
             let x = p(t_rx)?;
             let back_s = (x_rx_m - x).norm() / C_M_S;
             out.push((b.gm_m3_s2, p(&t_rx.plus_s(-back_s))?));
@@ -88,13 +111,15 @@ impl ShapiroSet {
 /// # Accuracy
 /// Converged to [`LIGHT_TIME_TOL_S`]; with a geocentric receiver and Shapiro
 /// off it agrees with SPICE `spkezr` 'CN' (spiceypy 8.3.0) to ≤ 5 ps
-/// (`tests/tracking_reference.rs`).
+/// (`tests/tracking.rs`, `light_time_matches_spice_cn_and_shapiro_matches_formula`).
 ///
 /// # Errors
-/// The transmitter's state function's error, or non-convergence.
-pub fn solve_backward<F>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tx_state: F) -> Result<Leg, String>
+/// The transmitter's state function's error (of the caller's type `E`), or
+/// a [`LightTimeError`] converted into it.
+pub fn solve_backward<F, E>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tx_state: F) -> Result<Leg, E>
 where
-    F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String>,
+    F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), E>,
+    E: From<LightTimeError>,
 {
     solve_backward_from(t_rx, x_rx_m, shapiro, 0.0, tx_state)
 }
@@ -108,26 +133,28 @@ where
 ///
 /// # References
 /// Moyer (2000), JPL DESCANSO Monograph 2, sec. 8.3.
-pub fn solve_backward_from<F>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tau0_s: f64, mut tx_state: F) -> Result<Leg, String>
+pub fn solve_backward_from<F, E>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tau0_s: f64, mut tx_state: F) -> Result<Leg, E>
 where
-    F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String>,
+    F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), E>,
+    E: From<LightTimeError>,
 {
+    let back = |tau_s: f64| -> Result<Epoch, LightTimeError> { Ok(t_rx.plus_fs(-seconds_to_fs(tau_s).ok_or(LightTimeError::NotFinite)?)?) };
     let mut tau_s = tau0_s;
     for it in 1..=MAX_ITERATIONS {
-        let t_tx = t_rx.plus_fs(-seconds_to_fs(tau_s).ok_or("non-finite light time")?).map_err(|e| e.to_string())?;
+        let t_tx = back(tau_s)?;
         let (x_tx, v_tx) = tx_state(&t_tx)?;
         let sh = shapiro.delay_s(&x_tx, x_rx_m);
         let next = (x_rx_m - x_tx).norm() / C_M_S + sh;
         if !next.is_finite() {
-            return Err("light time is not finite".into());
+            return Err(LightTimeError::NotFinite.into());
         }
         if (next - tau_s).abs() <= LIGHT_TIME_TOL_S {
-            let t_tx = t_rx.plus_fs(-seconds_to_fs(next).ok_or("non-finite light time")?).map_err(|e| e.to_string())?;
+            let t_tx = back(next)?;
             return Ok(Leg { light_time_s: next, shapiro_s: sh, t_tx, x_tx_m: x_tx, v_tx_m_s: v_tx, iterations: it });
         }
         tau_s = next;
     }
-    Err(format!("light time does not converge to {LIGHT_TIME_TOL_S} s in {MAX_ITERATIONS} iterations"))
+    Err(LightTimeError::NotConverged.into())
 }
 
 /// A transmitter state known at one epoch: TDB epoch, BCRS position (m) and
@@ -156,11 +183,12 @@ pub struct Anchor {
 /// Moyer (2000), *Formulation for Observed and Computed Values of Deep Space
 /// Network Data Types for Navigation*, JPL DESCANSO Monograph 2, sec. 8.3
 /// (iterative light-time solution).
-pub fn solve_backward_anchored<F>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tau0_s: f64, anchor: &Anchor, tx_state: F) -> Result<Leg, String>
+pub fn solve_backward_anchored<F, E>(t_rx: &Epoch, x_rx_m: &Vector3<f64>, shapiro: &ShapiroSet, tau0_s: f64, anchor: &Anchor, tx_state: F) -> Result<Leg, E>
 where
-    F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), String>,
+    F: FnMut(&Epoch) -> Result<(Vector3<f64>, Vector3<f64>), E>,
+    E: From<LightTimeError>,
 {
-    let uniform = solve_backward_from(t_rx, x_rx_m, shapiro, tau0_s, |t| {
+    let uniform = solve_backward_from(t_rx, x_rx_m, shapiro, tau0_s, |t| -> Result<_, E> {
         let dt_s = crate::time::femto::i128_as_f64(t.label_fs() - anchor.t.label_fs()) * 1e-15;
         Ok((anchor.x_m + anchor.v_m_s * dt_s, anchor.v_m_s))
     })?;
@@ -177,7 +205,7 @@ mod tests {
         let ts = TimeScales::builtin();
         let t = ts.epoch_from_mjd(TimeScale::Tdb, 60_000, 0.5).unwrap();
         let x_rx = Vector3::new(0.0, 0.0, 0.0);
-        let leg = solve_backward(&t, &x_rx, &ShapiroSet::none(), |_| Ok((Vector3::new(C_M_S * 1000.0, 0.0, 0.0), Vector3::zeros()))).unwrap();
+        let leg = solve_backward(&t, &x_rx, &ShapiroSet::none(), |_| Ok::<_, LightTimeError>((Vector3::new(C_M_S * 1000.0, 0.0, 0.0), Vector3::zeros()))).unwrap();
         assert!((leg.light_time_s - 1000.0).abs() < 1e-12);
         assert_eq!(leg.t_tx.label_fs(), t.label_fs() - 1000 * crate::time::femto::FS_PER_S);
     }
@@ -190,7 +218,7 @@ mod tests {
         let v = 30_000.0;
         let leg = solve_backward(&t, &Vector3::zeros(), &ShapiroSet::none(), |e| {
             let dt = crate::time::femto::i128_as_f64(e.label_fs() - t.label_fs()) * 1e-15;
-            Ok((Vector3::new(1e11 + v * dt, 0.0, 0.0), Vector3::new(v, 0.0, 0.0)))
+            Ok::<_, LightTimeError>((Vector3::new(1e11 + v * dt, 0.0, 0.0), Vector3::new(v, 0.0, 0.0)))
         })
         .unwrap();
         // Exact: τ = d/(c + v).
@@ -207,7 +235,7 @@ mod tests {
         let t = ts.epoch_from_mjd(TimeScale::Tdb, 60_000, 0.5).unwrap();
         let state = |e: &Epoch| {
             let dt = crate::time::femto::i128_as_f64(e.label_fs() - t.label_fs()) * 1e-15;
-            Ok((Vector3::new(1e11 + 3e4 * dt + 0.01 * dt * dt, 2e3 * dt, 0.0), Vector3::new(3e4 + 0.02 * dt, 2e3, 0.0)))
+            Ok::<_, LightTimeError>((Vector3::new(1e11 + 3e4 * dt + 0.01 * dt * dt, 2e3 * dt, 0.0), Vector3::new(3e4 + 0.02 * dt, 2e3, 0.0)))
         };
         let exact = solve_backward(&t, &Vector3::zeros(), &ShapiroSet::none(), state).unwrap();
         let guess_s = exact.light_time_s + 0.05;

@@ -20,6 +20,19 @@ fn register_font() {
     });
 }
 
+/// Errors of drawing or writing a plot.
+#[derive(Debug, thiserror::Error)]
+pub enum PlotError {
+    #[error("plot: {0}")]
+    Draw(String),
+}
+
+impl PlotError {
+    fn draw(e: impl std::fmt::Display) -> Self {
+        PlotError::Draw(e.to_string())
+    }
+}
+
 /// One series: label, times, values and their σ (same unit as the values).
 #[derive(Clone, Debug, Default)]
 pub struct Group {
@@ -52,11 +65,11 @@ fn finite_range(v: impl Iterator<Item = f64>) -> (f64, f64) {
     (lo - pad, hi + pad)
 }
 
-fn draw_residuals<DB: DrawingBackend>(area: &DrawingArea<DB, Shift>, title: &str, x_label: &str, y_label: &str, groups: &[Group]) -> Result<(), String>
+fn draw_residuals<DB: DrawingBackend>(area: &DrawingArea<DB, Shift>, title: &str, x_label: &str, y_label: &str, groups: &[Group]) -> Result<(), PlotError>
 where
     DB::ErrorType: 'static,
 {
-    area.fill(&WHITE).map_err(|e| e.to_string())?;
+    area.fill(&WHITE).map_err(PlotError::draw)?;
     let (x0, x1) = finite_range(groups.iter().flat_map(|g| g.t.iter().copied()));
     let (y0, y1) = finite_range(groups.iter().flat_map(|g| g.y.iter().zip(&g.sigma).flat_map(|(y, s)| [y - s, y + s])));
     let mut chart = ChartBuilder::on(area)
@@ -65,7 +78,7 @@ where
         .x_label_area_size(45)
         .y_label_area_size(80)
         .build_cartesian_2d(x0..x1, y0..y1)
-        .map_err(|e| e.to_string())?;
+        .map_err(PlotError::draw)?;
     chart
         .configure_mesh()
         .x_desc(x_label)
@@ -75,15 +88,15 @@ where
         .x_label_formatter(&|x| format!("{x:.1}"))
         .y_label_formatter(&|y| format!("{y:.3}"))
         .draw()
-        .map_err(|e| e.to_string())?;
+        .map_err(PlotError::draw)?;
     for (k, g) in groups.iter().enumerate() {
         let c = COLORS[k % COLORS.len()];
         chart
             .draw_series(g.t.iter().zip(&g.y).zip(&g.sigma).map(|((t, y), s)| ErrorBar::new_vertical(*t, y - s, *y, y + s, c.mix(0.5).stroke_width(1), 4)))
-            .map_err(|e| e.to_string())?;
+            .map_err(PlotError::draw)?;
         chart
             .draw_series(g.t.iter().zip(&g.y).map(|(t, y)| Circle::new((*t, *y), 2, c.filled())))
-            .map_err(|e| e.to_string())?
+            .map_err(PlotError::draw)?
             .label(format!("{} ({} rows)", g.label, g.t.len()))
             .legend(move |(x, y)| Circle::new((x + 8, y), 4, c.filled()));
     }
@@ -94,15 +107,15 @@ where
         .label_font(("sans-serif", 14))
         .position(SeriesLabelPosition::UpperRight)
         .draw()
-        .map_err(|e| e.to_string())?;
-    area.present().map_err(|e| e.to_string())
+        .map_err(PlotError::draw)?;
+    area.present().map_err(PlotError::draw)
 }
 
-fn draw_histogram<DB: DrawingBackend>(area: &DrawingArea<DB, Shift>, title: &str, groups: &[Group]) -> Result<(), String>
+fn draw_histogram<DB: DrawingBackend>(area: &DrawingArea<DB, Shift>, title: &str, groups: &[Group]) -> Result<(), PlotError>
 where
     DB::ErrorType: 'static,
 {
-    area.fill(&WHITE).map_err(|e| e.to_string())?;
+    area.fill(&WHITE).map_err(PlotError::draw)?;
     let z: Vec<f64> = groups.iter().flat_map(|g| g.y.iter().zip(&g.sigma).map(|(y, s)| y / s)).filter(|x| x.is_finite()).collect();
     let width = 0.25;
     let nbins = 40usize; // −5 … +5
@@ -122,7 +135,7 @@ where
         .x_label_area_size(45)
         .y_label_area_size(60)
         .build_cartesian_2d(-5.0f64..5.0, 0.0..peak)
-        .map_err(|e| e.to_string())?;
+        .map_err(PlotError::draw)?;
     chart
         .configure_mesh()
         .x_desc("normalised residual (residual / σ)")
@@ -130,13 +143,13 @@ where
         .label_style(("sans-serif", 14))
         .axis_desc_style(("sans-serif", 16))
         .draw()
-        .map_err(|e| e.to_string())?;
+        .map_err(PlotError::draw)?;
     chart
         .draw_series(counts.iter().enumerate().map(|(i, c)| {
             let x = -5.0 + i as f64 * width;
             Rectangle::new([(x, 0.0), (x + width, *c as f64)], RGBColor(31, 119, 180).mix(0.6).filled())
         }))
-        .map_err(|e| e.to_string())?
+        .map_err(PlotError::draw)?
         .label(if outside > 0 { format!("{} rows ({outside} beyond ±5, not shown)", z.len()) } else { format!("{} rows", z.len()) })
         .legend(|(x, y)| Rectangle::new([(x, y - 4), (x + 12, y + 4)], RGBColor(31, 119, 180).filled()));
     let gauss = (0..=200).map(|i| {
@@ -145,17 +158,17 @@ where
     });
     chart
         .draw_series(LineSeries::new(gauss, RED.stroke_width(2)))
-        .map_err(|e| e.to_string())?
+        .map_err(PlotError::draw)?
         .label("unit normal")
         .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 12, y)], RED.stroke_width(2)));
-    chart.configure_series_labels().background_style(WHITE.mix(0.85)).border_style(BLACK).label_font(("sans-serif", 14)).draw().map_err(|e| e.to_string())?;
-    area.present().map_err(|e| e.to_string())
+    chart.configure_series_labels().background_style(WHITE.mix(0.85)).border_style(BLACK).label_font(("sans-serif", 14)).draw().map_err(PlotError::draw)?;
+    area.present().map_err(PlotError::draw)
 }
 
 /// Writes `<output stem>.<name>.{png,svg}` (residuals against time) and
 /// `<output stem>.<name>_normalised.{png,svg}` (histogram of residual/σ).
 /// Returns the paths written.
-pub fn residual_plots(output: &Path, name: &str, title: &str, x_label: &str, y_label: &str, groups: &[Group]) -> Result<Vec<PathBuf>, String> {
+pub fn residual_plots(output: &Path, name: &str, title: &str, x_label: &str, y_label: &str, groups: &[Group]) -> Result<Vec<PathBuf>, PlotError> {
     register_font();
     let stem = output.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "output".into());
     let dir = output.parent().unwrap_or(Path::new("."));

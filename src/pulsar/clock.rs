@@ -25,6 +25,8 @@ pub enum ClockError {
     Io { path: PathBuf, source: std::io::Error },
     #[error("clock table {path}: line {line}: {reason}")]
     Format { path: PathBuf, line: usize, reason: String },
+    #[error("clock table {} covers MJD {first_mjd} … {last_mjd}, not {mjd:.6} (allow extrapolation in [clocks] to hold its end value)", path.display())]
+    OutsideSpan { path: PathBuf, first_mjd: f64, last_mjd: f64, mjd: f64 },
 }
 
 /// One clock-correction table.
@@ -104,7 +106,7 @@ impl ClockTable {
 }
 
 /// Evaluates a chain of tables at an MJD. Errors name the table and its span.
-pub fn chain_at(tables: &[ClockTable], mjd: f64, allow_extrapolation: bool) -> Result<ClockValue, String> {
+pub fn chain_at(tables: &[ClockTable], mjd: f64, allow_extrapolation: bool) -> Result<ClockValue, ClockError> {
     let mut v = ClockValue { offset_s: 0.0, extrapolated: false };
     for t in tables {
         match t.at(mjd) {
@@ -114,8 +116,8 @@ pub fn chain_at(tables: &[ClockTable], mjd: f64, allow_extrapolation: bool) -> R
                 v.extrapolated = true;
             }
             None => {
-                let (a, b) = t.span_mjd();
-                return Err(format!("clock table {} covers MJD {a} … {b}, not {mjd:.6} (allow extrapolation in [clocks] to hold its end value)", t.path.display()));
+                let (first_mjd, last_mjd) = t.span_mjd();
+                return Err(ClockError::OutsideSpan { path: t.path.clone(), first_mjd, last_mjd, mjd });
             }
         }
     }
@@ -137,7 +139,7 @@ mod tests {
         assert!((a.at(58001.0).unwrap() - 2e-6).abs() < 1e-20);
         let v = chain_at(&[a.clone(), b], 58001.5, false).unwrap();
         assert!((v.offset_s - (2.5e-6 - 2e-8)).abs() < 1e-18 && !v.extrapolated);
-        assert!(chain_at(std::slice::from_ref(&a), 58003.0, false).unwrap_err().contains("t.csv"));
+        assert!(chain_at(std::slice::from_ref(&a), 58003.0, false).unwrap_err().to_string().contains("t.csv"));
         let v = chain_at(&[a], 58003.0, true).unwrap();
         assert!(v.extrapolated && v.offset_s == 3e-6);
     }

@@ -15,13 +15,57 @@ use std::collections::HashMap;
 use nalgebra::Vector3;
 
 use crate::delays::{self, Source};
-use crate::earth::{EarthModel, StationCatalog};
-use crate::ephemeris::{Ephemeris, TdbSeconds};
+use crate::earth::{EarthError, EarthModel, StationCatalog, StationError};
+use crate::ephemeris::{Ephemeris, EphemerisError, TdbSeconds};
+use crate::reject::{Coded, RejectCode};
+use crate::parallel::Exec;
 use crate::time::femto::{FS_PER_S, div_floor, ratio_to_f64, seconds_to_fs};
-use crate::time::{Epoch, TimeScale};
-use clock::{ClockTable, chain_at};
+use crate::time::{Epoch, TimeError, TimeScale};
+use clock::{ClockError, ClockTable, chain_at};
 
 pub use crate::delays::{MAX_SHAPIRO_BODIES, SHAPIRO_BODY_NAMES, ShapiroBody, shapiro_bodies};
+
+/// Why one arrival time could not be processed (each a reject class).
+#[derive(Debug, thiserror::Error)]
+pub enum ArrivalError {
+    #[error("arrival_mjd_frac out of range: {0:?} is not in [0, 1)")]
+    FractionOutOfRange(f64),
+    #[error("freq_mhz invalid: {0:?} (must be positive; infinite means no dispersion)")]
+    Frequency(f64),
+    #[error("arrival time not convertible: {0}")]
+    Time(#[from] TimeError),
+    #[error("unknown site: {0}")]
+    UnknownSite(#[from] StationError),
+    #[error("clock correction unavailable: no clock chain for site '{0}': add it under [clocks] sites")]
+    NoClockChain(String),
+    #[error("clock correction unavailable: {0}")]
+    Clock(#[from] ClockError),
+    #[error("geometry unavailable: {0}")]
+    Earth(#[from] EarthError),
+    #[error("geometry unavailable: {0}")]
+    Ephemeris(#[from] EphemerisError),
+    #[error("non-finite delay {0:?} s")]
+    NonFiniteDelay(f64),
+    #[error("plan epoch {0} is not finite")]
+    PlanEpoch(f64),
+    #[error("no convergence to 1 ps near MJD {mjd} at {site}")]
+    NoConvergence { site: String, mjd: f64 },
+}
+
+impl Coded for ArrivalError {
+    fn reject_code(&self) -> RejectCode {
+        match self {
+            ArrivalError::FractionOutOfRange(_) => RejectCode::FractionOutOfRange,
+            ArrivalError::Frequency(_) | ArrivalError::PlanEpoch(_) => RejectCode::InvalidValue,
+            ArrivalError::Time(_) => RejectCode::TimeNotConvertible,
+            ArrivalError::UnknownSite(_) => RejectCode::UnknownStation,
+            ArrivalError::NoClockChain(_) | ArrivalError::Clock(_) => RejectCode::ClockUnavailable,
+            ArrivalError::Earth(_) | ArrivalError::Ephemeris(_) => RejectCode::GeometryUnavailable,
+            ArrivalError::NonFiniteDelay(_) => RejectCode::NotFinite,
+            ArrivalError::NoConvergence { .. } => RejectCode::NotConverged,
+        }
+    }
+}
 
 /// The spin model: frequency and derivatives at an epoch (TDB).
 #[derive(Clone, Debug, PartialEq)]
@@ -89,10 +133,6 @@ pub struct PulsarContext {
     pub dm_pc_cm3: f64,
     pub shapiro: Vec<ShapiroBody>,
     pub ppn_gamma: f64,
-    /// Rows per parallel work unit (results do not depend on it).
-    pub chunk_rows: usize,
-    /// Rows processed so far, for progress displays.
-    pub progress: Option<std::sync::Arc<std::sync::atomic::AtomicUsize>>,
 }
 
 /// One arrival time to process.
@@ -127,11 +167,11 @@ pub struct ArrivalResult {
 
 impl PulsarContext {
     /// Clock correction (s) for a site at an input epoch.
-    fn clock(&self, site: &str, mjd: f64) -> Result<(f64, bool), String> {
+    fn clock(&self, site: &str, mjd: f64) -> Result<(f64, bool), ArrivalError> {
         if !self.input_is_site_clock {
             return Ok((0.0, false));
         }
-        let chain = self.clocks.get(site).ok_or_else(|| format!("no clock chain for site '{site}': add it under [clocks] sites"))?;
+        let chain = self.clocks.get(site).ok_or_else(|| ArrivalError::NoClockChain(site.to_string()))?;
         let v = chain_at(chain, mjd, self.allow_clock_extrapolation)?;
         Ok((v.offset_s, v.extrapolated))
     }
@@ -150,31 +190,27 @@ impl PulsarContext {
     ///
     /// # Errors
     /// A reason a person can act on (unknown site, bad value, coverage).
-    pub fn process(&self, a: &Arrival) -> Result<ArrivalResult, String> {
+    pub fn process(&self, a: &Arrival) -> Result<ArrivalResult, ArrivalError> {
         if !a.mjd_frac.is_finite() || !(0.0..1.0).contains(&a.mjd_frac) {
-            return Err(format!("arrival_mjd_frac out of range: {:?} is not in [0, 1)", a.mjd_frac));
+            return Err(ArrivalError::FractionOutOfRange(a.mjd_frac));
         }
         if a.freq_mhz.is_nan() || a.freq_mhz <= 0.0 {
-            return Err(format!("freq_mhz invalid: {:?} (must be positive; infinite means no dispersion)", a.freq_mhz));
+            return Err(ArrivalError::Frequency(a.freq_mhz));
         }
-        let site_time = self
-            .earth
-            .time
-            .epoch_from_mjd(TimeScale::Utc, a.mjd_day, a.mjd_frac)
-            .map_err(|e| format!("arrival time not convertible: {e}"))?;
+        let site_time = self.earth.time.epoch_from_mjd(TimeScale::Utc, a.mjd_day, a.mjd_frac)?;
         self.process_epoch(a.site, site_time, a.freq_mhz)
     }
 
     /// As [`Self::process`], for a site arrival time given as an epoch (in
     /// the input's time scale, labelled like UTC days).
-    pub fn process_epoch(&self, site: &str, site_time: Epoch, freq_mhz: f64) -> Result<ArrivalResult, String> {
-        let station = self.stations.get(site).map_err(|e| format!("unknown site: {e}"))?;
+    pub fn process_epoch(&self, site: &str, site_time: Epoch, freq_mhz: f64) -> Result<ArrivalResult, ArrivalError> {
+        let station = self.stations.get(site)?;
         let mjd = site_time.mjd_day() as f64 + ratio_to_f64(site_time.fs_of_day(), crate::time::femto::FS_PER_DAY);
-        let (clock_s, clock_extrapolated) = self.clock(site, mjd).map_err(|e| format!("clock correction unavailable: {e}"))?;
-        let utc = if clock_s == 0.0 { site_time } else { self.earth.time.add_seconds(site_time, clock_s).map_err(|e| format!("arrival time not convertible: {e}"))? };
-        let st = self.earth.station_state(&self.ephemeris, station, &utc).map_err(|e| format!("geometry unavailable: {e}"))?;
-        let einstein_s = ratio_to_f64(st.tdb.label_fs() - st.tt.label_fs(), FS_PER_S);
-        let t = TdbSeconds::from_epoch(&st.tdb).map_err(|e| e.to_string())?;
+        let (clock_s, clock_extrapolated) = self.clock(site, mjd)?;
+        let utc = if clock_s == 0.0 { site_time } else { self.earth.time.add_seconds(site_time, clock_s)? };
+        let st = self.earth.station_state(&self.ephemeris, station, &utc)?;
+        let einstein_s = delays::einstein_s(&st.tdb, &st.tt);
+        let t = TdbSeconds::from_epoch(&st.tdb)?;
         let n = self.source.direction(t.approx_s());
         let r = st.bcrs_position_m;
         let roemer_s = delays::roemer_s(&r, &n);
@@ -182,12 +218,13 @@ impl PulsarContext {
         let mut shapiro_body_s = [0.0; MAX_SHAPIRO_BODIES];
         let mut shapiro_s = 0.0;
         for (k, b) in self.shapiro.iter().enumerate() {
-            let body = |tt: &TdbSeconds| -> Result<Vector3<f64>, String> {
-                let p = self.ephemeris.shapiro_position_ssb_km(b.naif_id, tt).map_err(|e| format!("geometry unavailable: {e}"))?;
+            let body = |tt: &TdbSeconds| -> Result<Vector3<f64>, ArrivalError> {
+                let p = self.ephemeris.shapiro_position_ssb_km(b.naif_id, tt)?;
                 Ok(Vector3::from(p) * 1e3)
             };
             // The Sun at the reception time; planets when the signal passes
-            // them (one light-time iteration; REFERENCE.md §4).
+            // them (one light-time iteration; the retarded position of
+            // Backer & Hellings 1986, ARA&A 24, 537, sec. 3.2).
             let mut x = body(&t)?;
             if b.naif_id != 10 {
                 let back_s = (x - r).norm() / delays::C_M_S;
@@ -200,7 +237,7 @@ impl PulsarContext {
         let f_bary = delays::barycentric_frequency_mhz(freq_mhz, &n, &st.bcrs_velocity_m_s);
         let dispersion_s = delays::dispersion_s(self.dm_pc_cm3, f_bary);
         let total = roemer_s + parallax_s - shapiro_s - dispersion_s;
-        let bat = st.tdb.plus_fs(seconds_to_fs(total).ok_or("non-finite delay")?).map_err(|e| e.to_string())?;
+        let bat = st.tdb.plus_fs(seconds_to_fs(total).ok_or(ArrivalError::NonFiniteDelay(total))?)?;
         let (pulse_number, frac) = self.spin.phase(&bat);
         Ok(ArrivalResult {
             tdb: st.tdb,
@@ -221,8 +258,8 @@ impl PulsarContext {
 
     /// Processes a batch in parallel over fixed chunks; results are in input
     /// order and independent of the thread count.
-    pub fn process_batch(&self, rows: &[Arrival]) -> Vec<Result<ArrivalResult, String>> {
-        crate::pipeline::par_map_chunks(rows, self.chunk_rows, self.progress.as_deref(), |a| self.process(a))
+    pub fn process_batch(&self, rows: &[Arrival], exec: &Exec) -> Vec<Result<ArrivalResult, ArrivalError>> {
+        exec.map(rows, |a| self.process(a))
     }
 
     /// The site arrival time (in the input's time scale) at which the model
@@ -230,70 +267,24 @@ impl PulsarContext {
     /// point iteration on the femtosecond epoch to ≤ 1 ps (d BAT / d t_site =
     /// 1 ± 1e-4, so each pass gains four digits). Writing it as an f64 MJD
     /// fraction then rounds it by ≤ 5 ps.
-    pub fn exact_arrival(&self, site: &str, guess_mjd: f64, freq_mhz: f64) -> Result<Epoch, String> {
+    pub fn exact_arrival(&self, site: &str, guess_mjd: f64, freq_mhz: f64) -> Result<Epoch, ArrivalError> {
         const SOLVE_TOL_S: f64 = 1e-12;
         if !guess_mjd.is_finite() {
-            return Err(format!("plan epoch {guess_mjd} is not finite"));
+            return Err(ArrivalError::PlanEpoch(guess_mjd));
         }
         let day = guess_mjd.floor() as i64;
-        let mut e = self.earth.time.epoch_from_mjd(TimeScale::Utc, day, guess_mjd - day as f64).map_err(|e| e.to_string())?;
+        let mut e = self.earth.time.epoch_from_mjd(TimeScale::Utc, day, guess_mjd - day as f64)?;
         for _ in 0..12 {
             let r = self.process_epoch(site, e, freq_mhz)?;
             if r.residual_s.abs() <= SOLVE_TOL_S {
                 return Ok(e);
             }
-            e = self.earth.time.add_seconds(e, -r.residual_s).map_err(|e| e.to_string())?;
+            e = self.earth.time.add_seconds(e, -r.residual_s)?;
         }
-        Err(format!("no convergence to 1 ps near MJD {guess_mjd} at {site}"))
+        Err(ArrivalError::NoConvergence { site: site.to_string(), mjd: guess_mjd })
     }
 }
 
-
-/// Weighted mean of (residual, σ) pairs (weights 1/σ²; 0 without weight),
-/// and the sum of the weights.
-fn weighted_mean_and_weight(pairs: impl Iterator<Item = (f64, f64)>) -> (f64, f64) {
-    let (mut sw, mut swr) = (0.0, 0.0);
-    for (r, s) in pairs {
-        let w = 1.0 / (s * s);
-        sw += w;
-        swr += w * r;
-    }
-    (if sw > 0.0 { swr / sw } else { 0.0 }, sw)
-}
-
-/// Weighted mean of residuals (s) given as (residual, σ) pairs: the mean
-/// [`residual_summary`] reports, in one pass without collecting them.
-pub fn weighted_mean(pairs: impl Iterator<Item = (f64, f64)>) -> f64 {
-    weighted_mean_and_weight(pairs).0
-}
-
-/// Weighted statistics of residuals.
-#[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct ResidualSummary {
-    pub count: usize,
-    pub weighted_mean_s: f64,
-    pub weighted_rms_s: f64,
-    pub chi2: f64,
-}
-
-/// Weighted mean, weighted RMS and χ² of residuals with σ (s); the RMS and χ²
-/// are taken about the weighted mean when `about_mean`.
-pub fn residual_summary(residual_s: &[f64], sigma_s: &[f64], about_mean: bool) -> ResidualSummary {
-    let (mean, sw) = weighted_mean_and_weight(residual_s.iter().copied().zip(sigma_s.iter().copied()));
-    let c = if about_mean { mean } else { 0.0 };
-    let (mut swr2, mut chi2) = (0.0, 0.0);
-    for (r, s) in residual_s.iter().zip(sigma_s) {
-        let w = 1.0 / (s * s);
-        swr2 += w * (r - c) * (r - c);
-        chi2 += (r - c) * (r - c) * w;
-    }
-    ResidualSummary {
-        count: residual_s.len(),
-        weighted_mean_s: mean,
-        weighted_rms_s: if sw > 0.0 { (swr2 / sw).sqrt() } else { 0.0 },
-        chi2,
-    }
-}
 
 #[cfg(test)]
 mod tests {
@@ -326,11 +317,4 @@ mod tests {
         assert!(f.abs() < 1e-12);
     }
 
-    #[test]
-    fn summary_statistics() {
-        let s = residual_summary(&[1.0, -1.0, 3.0], &[1.0, 1.0, 1.0], true);
-        assert!((s.weighted_mean_s - 1.0).abs() < 1e-15);
-        assert!((s.chi2 - 8.0).abs() < 1e-12);
-        assert!((s.weighted_rms_s - (8.0f64 / 3.0).sqrt()).abs() < 1e-15);
-    }
 }

@@ -182,7 +182,7 @@ impl fmt::Display for Epoch {
 /// the conversion chain without the time module depending on `earth`.
 pub trait Ut1Source: Send + Sync + std::fmt::Debug {
     /// UT1 − TAI in seconds at a UTC epoch.
-    fn ut1_minus_tai_s(&self, leaps: &LeapSecondTable, utc: &Epoch) -> Result<f64, String>;
+    fn ut1_minus_tai_s(&self, leaps: &LeapSecondTable, utc: &Epoch) -> Result<f64, TimeError>;
 }
 
 /// Converts epochs between time scales with one leap-second table.
@@ -252,7 +252,7 @@ impl TimeScales {
         })?;
         let (day, fs) = self.leaps.utc_day_of_tai(tai_fs)?;
         let utc = Epoch { scale: TimeScale::Utc, mjd_day: day, fs_of_day: fs };
-        let d = src.ut1_minus_tai_s(&self.leaps, &utc).map_err(|reason| TimeError::Ut1 { reason })?;
+        let d = src.ut1_minus_tai_s(&self.leaps, &utc)?;
         seconds_to_fs(d).ok_or_else(|| TimeError::NonFinite { what: "UT1 − TAI (s)".into(), value: d })
     }
 

@@ -200,6 +200,11 @@ impl LeapSecondTable {
         self.window_mjd
     }
 
+    /// What happens past the table's window.
+    pub fn policy(&self) -> ExpiryPolicy {
+        self.policy
+    }
+
     /// Where the table came from.
     pub fn source_name(&self) -> &str {
         &self.source_name

@@ -1,8 +1,9 @@
 //! Time scales at femtosecond resolution.
 //!
 //! hifitime does calendars elsewhere in the ecosystem, but resolves only
-//! 1 ns and uses a one-term TDB model (off by up to 38 µs; see
-//! `REFERENCE.md` §10), so lapse carries its own epochs: integer
+//! 1 ns and uses a one-term TDB model (off by up to 38 µs against the
+//! Fairhead & Bretagnon 1990 series, A&A 229, 240; figure from memory), so
+//! lapse carries its own epochs: integer
 //! femtoseconds per scale ([`femto`]), a leap-second table read from the IERS
 //! file ([`leap`]), the IAU relations between coordinate times
 //! ([`relativistic`]) and the conversion chain ([`TimeScales`]).

@@ -12,6 +12,11 @@ use crate::constants::EphemerisConstants;
 use crate::ephemeris::{Ephemeris, EphemerisError, TdbSeconds};
 
 /// Bodies of the field: NAIF id and GM (km³/s²).
+/// The ephemeris constants lack a body's GM.
+#[derive(Debug, thiserror::Error)]
+#[error("no GM for {0}")]
+pub struct MissingGm(pub &'static str);
+
 #[derive(Clone, Debug)]
 pub struct PointMassField {
     pub bodies: Vec<(i32, f64)>,
@@ -20,7 +25,7 @@ pub struct PointMassField {
 impl PointMassField {
     /// Sun, planetary system barycentres 1, 2, 4–9, Earth and Moon, with the
     /// ephemeris' GM values.
-    pub fn solar_system(c: &EphemerisConstants) -> Result<Self, String> {
+    pub fn solar_system(c: &EphemerisConstants) -> Result<Self, MissingGm> {
         let names = [
             (10, "sun"),
             (1, "mercury_barycenter"),
@@ -36,7 +41,7 @@ impl PointMassField {
         ];
         let bodies = names
             .iter()
-            .map(|(id, n)| c.gm_km3_s2(n).map(|gm| (*id, gm)).ok_or_else(|| format!("no GM for {n}")))
+            .map(|(id, n)| c.gm_km3_s2(n).map(|gm| (*id, gm)).ok_or(MissingGm(n)))
             .collect::<Result<_, _>>()?;
         Ok(Self { bodies })
     }

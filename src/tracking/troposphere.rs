@@ -27,6 +27,16 @@ pub struct SurfaceMet {
     pub relative_humidity: f64,
 }
 
+/// A surface meteorology value outside its physical range.
+#[derive(Debug, thiserror::Error)]
+#[error("{name} {value} outside {lo}–{hi}")]
+pub struct MetError {
+    pub name: &'static str,
+    pub value: f64,
+    pub lo: f64,
+    pub hi: f64,
+}
+
 impl SurfaceMet {
     /// The standard atmosphere at a height (m): P = 1013.25·(1 − 2.2557e-5 h)^5.2568
     /// hPa, T = 288.15 − 0.0065 h K, 50 % humidity (ICAO standard atmosphere,
@@ -37,15 +47,11 @@ impl SurfaceMet {
     }
 
     /// Checks the values are physical.
-    pub fn validate(&self) -> Result<(), String> {
-        if !(self.pressure_hpa.is_finite() && (300.0..1100.0).contains(&self.pressure_hpa)) {
-            return Err(format!("pressure_hpa {} outside 300–1100", self.pressure_hpa));
-        }
-        if !(self.temperature_k.is_finite() && (200.0..330.0).contains(&self.temperature_k)) {
-            return Err(format!("temperature_k {} outside 200–330", self.temperature_k));
-        }
-        if !(self.relative_humidity.is_finite() && (0.0..=1.0).contains(&self.relative_humidity)) {
-            return Err(format!("relative_humidity {} outside 0–1", self.relative_humidity));
+    pub fn validate(&self) -> Result<(), MetError> {
+        for (name, value, lo, hi) in [("pressure_hpa", self.pressure_hpa, 300.0, 1100.0), ("temperature_k", self.temperature_k, 200.0, 330.0), ("relative_humidity", self.relative_humidity, 0.0, 1.0)] {
+            if !(value.is_finite() && (lo..=hi).contains(&value)) {
+                return Err(MetError { name, value, lo, hi });
+            }
         }
         Ok(())
     }

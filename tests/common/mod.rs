@@ -69,3 +69,17 @@ pub fn fixture_csv(name: &str) -> Vec<Vec<String>> {
     let text = std::fs::read_to_string(&path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
     text.lines().filter(|l| !l.starts_with('#')).skip(1).map(|l| l.split(',').map(str::to_string).collect()).collect()
 }
+
+/// A tracking output's per-unit column pair (`<base>_s` for light-time rows,
+/// `<base>_hz` for Doppler rows) as one column of values: each row's
+/// non-null one.
+#[allow(dead_code)]
+pub fn by_unit(df: &polars::prelude::DataFrame, base: &str) -> Vec<f64> {
+    let s = df.column(&format!("{base}_s")).unwrap().f64().unwrap().clone();
+    let hz = df.column(&format!("{base}_hz")).unwrap().f64().unwrap().clone();
+    s.iter().zip(hz.iter()).map(|(a, b)| match (a, b) {
+        (Some(a), None) => a,
+        (None, Some(b)) => b,
+        other => panic!("row with {other:?}: exactly one unit column must hold the value"),
+    }).collect()
+}

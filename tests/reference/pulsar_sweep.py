@@ -13,7 +13,7 @@ random source directions (uniform on the sphere), with
   site's TDB (two-part Julian date);
 - shapiro_sun_s: -(1 + gamma) GM_sun / c^3 ln(r (1 - cos theta) / au) with the
   Sun from jplephem at the site's TDB, gamma = 1, GM_sun from the DE421 header
-  (data/constants.toml) - REFERENCE.md section 4, Backer & Hellings 1986.
+  (data/constants.toml) - Backer & Hellings 1986, ARA&A 24, 537, eq. 6.
 
 Reference libraries: pyerfa and jplephem (versions in the header).
 Regenerate: python tests/reference/pulsar_sweep.py tests/fixtures

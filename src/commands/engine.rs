@@ -6,7 +6,7 @@
 //! orientation, stations, clocks, leap seconds) once; [`BatchEngine::process`]
 //! then maps any number of input tables to output and rejects tables. The
 //! tables are exactly what `lapse run` writes for an input file holding the
-//! same rows: the CLI's in-memory partition path calls the same functions.
+//! same rows: both call the kind's `process` through the same kernel.
 //!
 //! A batch is a partition: where a pipeline removes the weighted mean of the
 //! residuals (`[residuals] subtract_weighted_mean`), it is removed over the
@@ -15,7 +15,7 @@
 //!
 //! ```no_run
 //! use std::path::Path;
-//! let mut engine = lapse::pipeline::batch::BatchEngine::load(Path::new("pipelines/pulsar_demo.toml"))?;
+//! let mut engine = lapse::commands::engine::BatchEngine::load(Path::new("pipelines/pulsar_demo.toml"))?;
 //! let df = lapse::io::read_parquet(Path::new("data/demo/pulsar_toas.parquet"))?;
 //! let out = engine.process(&df, Path::new("pulsar_toas.parquet"))?;
 //! println!("{} rows, {} rejected", out.output.height(), out.rejects.height());
@@ -26,22 +26,15 @@ use std::path::Path;
 
 use polars::prelude::DataFrame;
 
-use super::pulsar::{LoadedPulsar, load_pulsar, pulsar_batch};
-use super::tracking::{LoadedTracking, load_tracking, tracking_batch};
-use super::{KINDS, LoadedTimescales, PipelineError, PipelineFile, load_timescales, timescales_batch};
+use crate::parallel::Exec;
+use crate::pipeline::stream::{process_checked, subtract};
+use crate::pipeline::{Kind, PipelineError, PipelineFile, Processed};
 
 /// A pipeline with its shared inputs loaded, ready for batches.
 #[derive(Debug)]
 pub struct BatchEngine {
     file: PipelineFile,
-    loaded: Loaded,
-}
-
-#[derive(Debug)]
-enum Loaded {
-    Timescales(Box<LoadedTimescales>),
-    Pulsar(Box<LoadedPulsar>),
-    Tracking(Box<LoadedTracking>),
+    kind: Box<dyn Kind>,
 }
 
 /// The result tables of one batch.
@@ -49,7 +42,7 @@ enum Loaded {
 pub struct BatchOutput {
     /// The output table (accepted rows, input order), as `lapse run` writes it.
     pub output: DataFrame,
-    /// The rejects table (input columns plus `reason`).
+    /// The rejects table (input columns plus `reason_code` and `reason`).
     pub rejects: DataFrame,
 }
 
@@ -61,13 +54,8 @@ impl BatchEngine {
 
     /// Loads the shared inputs of an already-read pipeline.
     pub fn from_file(file: PipelineFile) -> Result<Self, PipelineError> {
-        let loaded = match file.kind.as_str() {
-            "timescales" => Loaded::Timescales(Box::new(load_timescales(&file)?)),
-            "pulsar" => Loaded::Pulsar(Box::new(load_pulsar(&file)?)),
-            "tracking" => Loaded::Tracking(Box::new(load_tracking(&file)?)),
-            other => return Err(PipelineError::UnknownKind { path: file.path.clone(), kind: other.into(), known: KINDS.join(", ") }),
-        };
-        Ok(Self { file, loaded })
+        let kind = crate::kinds::load(&file)?;
+        Ok(Self { file, kind })
     }
 
     /// The pipeline this engine runs.
@@ -81,11 +69,10 @@ impl BatchEngine {
     /// (missing column, wrong type, duplicate `obs_id`); bad rows are
     /// rejected with a reason, never an error.
     pub fn process(&mut self, df: &DataFrame, source: &Path) -> Result<BatchOutput, PipelineError> {
-        let (output, rejects) = match &mut self.loaded {
-            Loaded::Timescales(l) => timescales_batch(l, df, source)?,
-            Loaded::Pulsar(l) => pulsar_batch(l, df, source)?,
-            Loaded::Tracking(l) => tracking_batch(l, df, source)?,
-        };
+        let Processed { mut output, rejects, mut tally } = process_checked(self.kind.as_mut(), df, source, &Exec::default())?;
+        for (col, offset) in tally.remove_means() {
+            subtract(&mut output, col, offset, source)?;
+        }
         Ok(BatchOutput { output, rejects })
     }
 }

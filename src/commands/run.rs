@@ -1,0 +1,68 @@
+//! `lapse run`: load the pipeline's kind, run every partition (each read
+//! once, checked, computed, written), and render the summary.
+
+use std::path::Path;
+
+use crate::pipeline::{Level, PipelineError, PipelineFile, Preflight, RunOptions, RunSummary};
+
+/// Why a run stopped.
+#[derive(Debug, thiserror::Error)]
+pub enum RunError {
+    #[error(transparent)]
+    Pipeline(#[from] PipelineError),
+    /// A partition's preflight found it unusable (nothing of it was written).
+    #[error("preflight: {0}")]
+    Unusable(String),
+}
+
+/// Runs a pipeline file. Each partition's preflight findings above `ok` go
+/// to `warn` (problems: their rows will be rejected with reasons); an
+/// unusable partition stops the run before anything of it is written.
+pub fn run(pipeline: &Path, opts: &RunOptions, warn: &mut dyn FnMut(&Preflight)) -> Result<RunSummary, RunError> {
+    let file = PipelineFile::read(pipeline)?;
+    let mut kind = crate::kinds::load(&file)?;
+    let mut unusable = None;
+    let mut on_report = |_: &Path, report: &Preflight| -> Result<(), PipelineError> {
+        if let Some(f) = report.findings.iter().find(|f| f.level == Level::Unusable) {
+            unusable = Some(f.text.clone());
+            return Err(PipelineError::Input { path: pipeline.into(), message: f.text.clone() });
+        }
+        if report.worst() >= Level::Note {
+            warn(report);
+        }
+        Ok(())
+    };
+    match crate::pipeline::run_kind(&file, kind.as_mut(), opts, &mut on_report) {
+        Ok(s) => Ok(s),
+        Err(e) => Err(match unusable {
+            Some(text) => RunError::Unusable(text),
+            None => RunError::Pipeline(e),
+        }),
+    }
+}
+
+/// The summary a run prints.
+pub fn render_summary(pipeline: &Path, s: &RunSummary) -> String {
+    let mut out = String::new();
+    let mut line = |l: String| {
+        out.push_str(&l);
+        out.push('\n');
+    };
+    line(format!("pipeline   {}", pipeline.display()));
+    line(format!("rows in    {}", s.rows_in));
+    line(format!("rows out   {}  → {}", s.rows_out, s.output.display()));
+    line(format!("rejected   {}  → {}", s.rows_rejected, s.rejects.display()));
+    if s.partitions_done + s.partitions_skipped > 1 {
+        line(format!("partitions {} processed, {} up to date (skipped)", s.partitions_done, s.partitions_skipped));
+    }
+    if !s.plots.is_empty() {
+        line(format!("plots      {}", s.plots.iter().filter(|p| p.extension().is_some_and(|e| e == "png")).map(|p| p.display().to_string()).collect::<Vec<_>>().join(", ")));
+    }
+    for (code, n) in &s.rejects_by_reason {
+        line(format!("  {n:>8}  {code}"));
+    }
+    for note in &s.notes {
+        line(note.clone());
+    }
+    out
+}

@@ -1,0 +1,168 @@
+//! Partitions: the input files of a run (one file, a folder, a glob), their
+//! output paths, temporary files, and the up-to-date check that makes runs
+//! resumable.
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+use super::{PipelineError, PipelineFile, Provenance, RunSummary};
+
+/// Path of the rejects table beside an output file: `x.parquet` → `x.rejects.parquet`.
+pub fn rejects_path(output: &Path) -> PathBuf {
+    let stem = output.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "output".into());
+    output.with_file_name(format!("{stem}.rejects.parquet"))
+}
+
+/// The input files of a pipeline: one Parquet file, every `*.parquet` in a
+/// folder, or a glob (`*` and `?` in the file name part). Returns the files
+/// (sorted) and whether the input is partitioned (folder or glob).
+pub fn resolve_inputs(p: &Path) -> Result<(Vec<PathBuf>, bool), PipelineError> {
+    let name = p.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    let is_glob = name.contains('*') || name.contains('?');
+    if !is_glob && !p.is_dir() {
+        return Ok((vec![p.to_path_buf()], false));
+    }
+    let (dir, pattern) = if is_glob { (p.parent().unwrap_or(Path::new(".")).to_path_buf(), name) } else { (p.to_path_buf(), "*.parquet".to_string()) };
+    let entries = std::fs::read_dir(&dir).map_err(|source| PipelineError::Folder { path: dir.clone(), source })?;
+    let mut files: Vec<PathBuf> = entries
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|f| f.is_file() && f.file_name().map(|n| glob_match(&pattern, &n.to_string_lossy())).unwrap_or(false))
+        .filter(|f| !f.to_string_lossy().ends_with(".partial"))
+        .collect();
+    files.sort();
+    if files.is_empty() {
+        return Err(PipelineError::Input { path: p.into(), message: format!("no input files match {}", p.display()) });
+    }
+    Ok((files, true))
+}
+
+/// Shell-style match of `*` and `?` within one file name.
+fn glob_match(pattern: &str, name: &str) -> bool {
+    let (p, n): (Vec<char>, Vec<char>) = (pattern.chars().collect(), name.chars().collect());
+    let (mut pi, mut ni, mut star, mut mark) = (0usize, 0usize, None::<usize>, 0usize);
+    while ni < n.len() {
+        if pi < p.len() && (p[pi] == '?' || p[pi] == n[ni]) {
+            pi += 1;
+            ni += 1;
+        } else if pi < p.len() && p[pi] == '*' {
+            star = Some(pi);
+            mark = ni;
+            pi += 1;
+        } else if let Some(s) = star {
+            pi = s + 1;
+            mark += 1;
+            ni = mark;
+        } else {
+            return false;
+        }
+    }
+    while pi < p.len() && p[pi] == '*' {
+        pi += 1;
+    }
+    pi == p.len()
+}
+
+/// Output file of a partition: `<output folder>/<input stem>.parquet`.
+pub fn partition_output(out_dir: &Path, input: &Path) -> PathBuf {
+    let stem = input.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "part".into());
+    out_dir.join(format!("{stem}.parquet"))
+}
+
+/// True when `output` and its rejects table exist and the output records
+/// the same pipeline and input hashes as `expected` (a run's provenance).
+pub fn up_to_date(output: &Path, expected: &Provenance) -> bool {
+    if !output.exists() || !rejects_path(output).exists() {
+        return false;
+    }
+    let Ok(md) = crate::io::read_parquet_metadata(output) else { return false };
+    let md: BTreeMap<String, String> = md.into_iter().collect();
+    expected.identity().all(|(k, v)| md.get(k) == Some(v))
+}
+
+/// The temporary files a run writes on its way to `output` (and its
+/// rejects table): the data is written to these and renamed into place only
+/// when complete.
+pub fn partial_paths(output: &Path) -> [PathBuf; 4] {
+    [crate::io::partial_path(output), crate::io::partial_path(&rejects_path(output)), output.with_extension("stream-out.partial"), output.with_extension("stream-rejects.partial")]
+}
+
+/// Removes the temporary files a killed run left on its way to `output`.
+///
+/// Only this output's own partial files: other processes may be writing
+/// other outputs in the same folder at the same time (one cluster task per
+/// partition writes beside the others), and their partial files are theirs.
+pub fn remove_stale_partials(output: &Path) {
+    for p in partial_paths(output) {
+        if p.exists() {
+            tracing::warn!(path = %p.display(), "removing a partial file left by an interrupted run");
+            let _ = std::fs::remove_file(&p);
+        }
+    }
+}
+
+/// Runs `work` on every partition of a pipeline's input, skipping those
+/// whose outputs are up to date, and merges the summaries.
+///
+/// `base` holds the provenance shared by all partitions (pipeline, shared
+/// inputs); `work` receives the input, the output path and the partition's
+/// provenance (base plus the observations file).
+pub fn for_each_partition<F>(input: &Path, output: &Path, base: &Provenance, mut work: F) -> Result<RunSummary, PipelineError>
+where
+    F: FnMut(&Path, &Path, Provenance) -> Result<RunSummary, PipelineError>,
+{
+    let (inputs, partitioned) = resolve_inputs(input)?;
+    if partitioned && output.extension().is_some_and(|e| e == "parquet") {
+        return Err(PipelineError::Input { path: output.into(), message: "a partitioned input needs an output folder, not a .parquet file".into() });
+    }
+    let out_dir = if partitioned { output.to_path_buf() } else { output.parent().map(Path::to_path_buf).unwrap_or_default() };
+    if !out_dir.as_os_str().is_empty() {
+        std::fs::create_dir_all(&out_dir).map_err(|source| PipelineError::Folder { path: out_dir.clone(), source })?;
+    }
+    let mut total = RunSummary { output: output.into(), rejects: rejects_path(output), ..Default::default() };
+    for inp in &inputs {
+        let out = if partitioned { partition_output(output, inp) } else { output.to_path_buf() };
+        remove_stale_partials(&out);
+        let mut prov = base.clone();
+        let obs_sha = super::sha256_file(inp)?;
+        prov.set("input.observations.0.path", &inp.display().to_string());
+        prov.set("input.observations.0.sha256", &obs_sha);
+        if partitioned && up_to_date(&out, &prov) {
+            total.notes.push(format!("partition {}: up to date, skipped", inp.display()));
+            total.partitions_skipped += 1;
+            continue;
+        }
+        let s = work(inp, &out, prov)?;
+        total.rows_in += s.rows_in;
+        total.rows_out += s.rows_out;
+        total.rows_rejected += s.rows_rejected;
+        for (k, v) in s.rejects_by_reason {
+            *total.rejects_by_reason.entry(k).or_default() += v;
+        }
+        if partitioned {
+            total.notes.push(format!("partition {} → {}: {} rows, {} rejected", inp.display(), out.display(), s.rows_in, s.rows_rejected));
+        }
+        total.notes.extend(s.notes);
+        total.partitions_done += 1;
+        total.plots.extend(s.plots);
+        if !partitioned {
+            total.output = s.output;
+            total.rejects = s.rejects;
+        }
+    }
+    Ok(total)
+}
+
+/// Total rows of a pipeline's input (all partitions), from Parquet metadata;
+/// `None` when the pipeline or its input cannot be read.
+pub fn input_rows(pipeline: &Path, input: Option<&Path>) -> Option<usize> {
+    let path = match input {
+        Some(i) => i.to_path_buf(),
+        None => PipelineFile::read(pipeline).ok()?.input_path()?,
+    };
+    let (files, _) = resolve_inputs(&path).ok()?;
+    let mut n = 0;
+    for f in files {
+        n += super::table::parquet_rows(&f).ok()?;
+    }
+    Some(n)
+}

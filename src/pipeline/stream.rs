@@ -1,0 +1,222 @@
+//! One partition, end to end, for any kind: read once, preflight checks on
+//! what was read, compute (in memory, or in slices above a size), remove a
+//! weighted mean if the pipeline asks, write the output and rejects tables
+//! through temporary files and renames, summarise and plot.
+
+use std::path::Path;
+
+use polars::prelude::*;
+
+use super::kind::{Kind, Processed};
+use super::partition::{partial_paths, rejects_path};
+use super::preflight::{Facts, Level, Preflight, check_partition, scan_file, scan_frame};
+use super::table::{IdChecker, check_unique_ids, ids, parquet_rows, read_parquet_slice};
+use super::tally::{Tally, plot, summarise};
+use super::{PipelineError, Provenance, RunSummary};
+use crate::io::{IoError, read_parquet, write_parquet};
+use crate::parallel::Exec;
+
+/// Rows above which a partition of a kind that streams is processed in
+/// slices (bounded memory); `LAPSE_STREAM_ROWS` overrides it (tests use a
+/// small value).
+pub const STREAM_ABOVE_ROWS: usize = 2_000_000;
+/// Rows per slice when streaming; `LAPSE_STREAM_SLICE` overrides it.
+pub const STREAM_SLICE_ROWS: usize = 500_000;
+
+fn env_usize(name: &str, default: usize) -> usize {
+    std::env::var(name).ok().and_then(|v| v.parse().ok()).filter(|v: &usize| *v > 0).unwrap_or(default)
+}
+
+/// How partitions are run.
+#[derive(Clone, Debug)]
+pub struct PartitionOptions {
+    pub exec: Exec,
+    /// Write residual plots beside the outputs.
+    pub plots: bool,
+}
+
+/// Called with each partition's preflight report before it is computed;
+/// an `Err` stops the run before anything of the partition is written.
+pub type OnReport<'a> = dyn FnMut(&Path, &Preflight) -> Result<(), PipelineError> + 'a;
+
+/// Computes a batch with its ids checked beside the computation (a
+/// duplicate fails the batch all the same, only after the work).
+pub fn process_checked(kind: &mut dyn Kind, df: &DataFrame, source: &Path, exec: &Exec) -> Result<Processed, PipelineError> {
+    let ids = ids(df, source)?;
+    let (unique, processed) = rayon::join(|| check_unique_ids(&ids, source), || kind.process(df, source, exec));
+    unique?;
+    processed
+}
+
+/// Subtracts `offset` from a float column of a frame (a weighted mean
+/// removed over a partition or batch).
+pub fn subtract(df: &mut DataFrame, column: &str, offset: f64, path: &Path) -> Result<(), PipelineError> {
+    let v: Vec<f64> = crate::io::Columns { df, path }.f64(column)?.iter().map(|x| x.unwrap_or(f64::NAN) - offset).collect();
+    df.with_column(Column::new(column.into(), v)).map_err(|e| PipelineError::frame(path, e))?;
+    Ok(())
+}
+
+/// Records the summary and provenance of a complete partition.
+fn finish(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provenance, offsets: &[(&'static str, f64)]) {
+    if let Some((label, lo, hi)) = &tally.coverage {
+        prov.set("input.observations.0.coverage", &format!("{label} MJD {lo} … {hi}"));
+    }
+    summarise(tally, summary, prov, offsets);
+}
+
+/// Runs one partition: `input` → `output` and its rejects table. The
+/// partition is read once: its preflight report (handed to `on_report`
+/// before anything is computed) and the computation share the read.
+pub fn run_partition(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov: Provenance, opts: &PartitionOptions, on_report: &mut OnReport) -> Result<RunSummary, PipelineError> {
+    let n_rows = parquet_rows(input)?;
+    let streamed = kind.streams() && n_rows > env_usize("LAPSE_STREAM_ROWS", STREAM_ABOVE_ROWS);
+    let t0 = std::time::Instant::now();
+    let (frame, facts) = if streamed {
+        // Slices: ids and facts in bounded memory (the facts also size the grids).
+        (None, scan_file(kind, input)?)
+    } else {
+        let df = read_parquet(input)?;
+        let mut facts = Facts::default();
+        kind.scan(&df, input, &mut facts)?;
+        (Some(df), facts)
+    };
+    tracing::debug!(read_scan_s = t0.elapsed().as_secs_f64(), "read and scanned {}", input.display());
+    let mut report = Preflight::default();
+    check_partition(kind, &mut report, input, &facts);
+    on_report(input, &report)?;
+    prov.set("input.observations.0.bytes", &std::fs::metadata(input).map(|m| m.len()).unwrap_or(0).to_string());
+    let mut summary = RunSummary { output: output.into(), rejects: rejects_path(output), ..Default::default() };
+    let tally = match frame {
+        Some(df) => in_memory(kind, &df, input, output, prov, opts, &mut summary)?,
+        None => {
+            kind.prepare(&facts);
+            in_slices(kind, input, output, prov, opts, &mut summary, n_rows)?
+        }
+    };
+    if opts.plots {
+        summary.plots = plot(&tally, output)?;
+    }
+    Ok(summary)
+}
+
+fn in_memory(kind: &mut dyn Kind, df: &DataFrame, input: &Path, output: &Path, mut prov: Provenance, opts: &PartitionOptions, summary: &mut RunSummary) -> Result<Tally, PipelineError> {
+    let t0 = std::time::Instant::now();
+    let Processed { output: mut out, rejects: mut rej, mut tally } = process_checked(kind, df, input, &opts.exec)?;
+    let t1 = std::time::Instant::now();
+    let offsets = tally.remove_means();
+    for (col, offset) in &offsets {
+        subtract(&mut out, col, *offset, input)?;
+    }
+    (summary.rows_in, summary.rows_out, summary.rows_rejected) = (df.height(), out.height(), rej.height());
+    finish(&mut tally, summary, &mut prov, &offsets);
+    let metadata = prov.finish();
+    // Rejects first, output last: an existing output marks a complete partition.
+    write_parquet(&mut rej, &rejects_path(output), &metadata)?;
+    write_parquet(&mut out, output, &metadata)?;
+    tracing::debug!(rows = df.height(), compute_s = (t1 - t0).as_secs_f64(), write_s = t1.elapsed().as_secs_f64(), "wrote {}", output.display());
+    Ok(tally)
+}
+
+type Writer = polars::io::parquet::write::BatchedWriter<std::fs::File>;
+
+fn writer(path: &Path, schema: &Schema, metadata: Option<&[(String, String)]>) -> Result<Writer, PipelineError> {
+    let werr = |e: PolarsError| PipelineError::from(IoError::Write { path: path.into(), message: e.to_string() });
+    let file = std::fs::File::create(path).map_err(|e| IoError::Write { path: path.into(), message: e.to_string() })?;
+    let mut w = ParquetWriter::new(file).with_compression(crate::io::output_compression());
+    if let Some(md) = metadata {
+        let kv: Vec<polars_parquet::write::KeyValue> = md.iter().map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) }).collect();
+        w = w.with_key_value_metadata(Some(KeyValueMetadata::Static(kv)));
+    }
+    w.batched(schema).map_err(werr)
+}
+
+fn write_slice(w: &mut Writer, df: &mut DataFrame, path: &Path) -> Result<(), PipelineError> {
+    crate::io::write_row_groups_parallel(w, df).map_err(|e| IoError::Write { path: path.into(), message: e.to_string() }.into())
+}
+
+fn close(w: Writer, path: &Path) -> Result<(), PipelineError> {
+    w.finish().map(|_| ()).map_err(|e| IoError::Write { path: path.into(), message: e.to_string() }.into())
+}
+
+/// The streamed form: slices are computed and written (raw values) to
+/// temporary files while only the tally stays in memory; then the final
+/// files are written from them with any weighted mean removed and the
+/// metadata complete. Same tables as [`in_memory`].
+fn in_slices(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov: Provenance, opts: &PartitionOptions, summary: &mut RunSummary, n_rows: usize) -> Result<Tally, PipelineError> {
+    let slice = env_usize("LAPSE_STREAM_SLICE", STREAM_SLICE_ROWS);
+    let [_, _, tmp_out, tmp_rej] = partial_paths(output);
+    let (mut w_out, mut w_rej): (Option<Writer>, Option<Writer>) = (None, None);
+    let mut tally = Tally::default();
+    let mut at = 0usize;
+    while at < n_rows {
+        let df = read_parquet_slice(input, at, slice, None)?;
+        let Processed { output: mut out, rejects: mut rej, tally: t } = kind.process(&df, input, &opts.exec)?;
+        if w_out.is_none() {
+            w_out = Some(writer(&tmp_out, &out.schema(), None)?);
+            w_rej = Some(writer(&tmp_rej, &rej.schema(), None)?);
+        }
+        if let (Some(wo), Some(wr)) = (w_out.as_mut(), w_rej.as_mut()) {
+            write_slice(wo, &mut out, &tmp_out)?;
+            write_slice(wr, &mut rej, &tmp_rej)?;
+        }
+        summary.rows_out += out.height();
+        summary.rows_rejected += rej.height();
+        tally.merge(t);
+        at += slice;
+    }
+    summary.rows_in = n_rows;
+    if let (Some(wo), Some(wr)) = (w_out.take(), w_rej.take()) {
+        close(wo, &tmp_out)?;
+        close(wr, &tmp_rej)?;
+    }
+    let offsets = tally.remove_means();
+    finish(&mut tally, summary, &mut prov, &offsets);
+    let metadata = prov.finish();
+    // Pass 2: final files, offsets removed, full metadata; rejects first.
+    for (tmp, fin, n, fix) in [(&tmp_rej, rejects_path(output), summary.rows_rejected, false), (&tmp_out, output.to_path_buf(), summary.rows_out, true)] {
+        let part = crate::io::partial_path(&fin);
+        let mut w: Option<Writer> = None;
+        let mut k = 0usize;
+        loop {
+            let mut df = read_parquet_slice(tmp, k, slice, None)?;
+            if w.is_none() {
+                w = Some(writer(&part, &df.schema(), Some(&metadata))?);
+            }
+            if fix {
+                for (col, offset) in &offsets {
+                    subtract(&mut df, col, *offset, tmp)?;
+                }
+            }
+            if let Some(w) = w.as_mut() {
+                write_slice(w, &mut df, &part)?;
+            }
+            k += slice;
+            if k >= n {
+                break;
+            }
+        }
+        if let Some(w) = w {
+            close(w, &part)?;
+        }
+        std::fs::rename(&part, &fin).map_err(|e| IoError::Write { path: fin.clone(), message: e.to_string() })?;
+        let _ = std::fs::remove_file(tmp);
+    }
+    Ok(tally)
+}
+
+/// Scans a partition for `lapse check`: ids, typed columns and facts (in
+/// slices: bounded memory), then the kind's checks. Problems are findings.
+pub fn check_file(kind: &dyn Kind, report: &mut Preflight, path: &Path) {
+    match scan_file(kind, path) {
+        Ok(facts) => check_partition(kind, report, path, &facts),
+        Err(e) => report.add(Level::Unusable, e.to_string()),
+    }
+}
+
+/// Facts of one in-memory batch and its ids (for engines without files).
+pub fn scan_batch(kind: &dyn Kind, df: &DataFrame, source: &Path) -> Result<Facts, PipelineError> {
+    let mut facts = Facts::default();
+    let mut id_check = IdChecker::new(df.height());
+    scan_frame(kind, df, source, 0, &mut facts, &mut id_check)?;
+    Ok(facts)
+}
