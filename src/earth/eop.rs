@@ -170,7 +170,7 @@ impl EopTable {
         for k in 0..4 {
             ut1_tai[k] = nodes[k].ut1_minus_utc_s - tai_utc(nodes[k].mjd)?;
         }
-        let interp = |y: [f64; 4]| lagrange4(&x, &y, t);
+        let interp = |y: [f64; 4]| crate::interp::lagrange4(&x, &y, t);
         let ut1_minus_tai_s = interp(ut1_tai);
         // TAI − UTC of the epoch's own UTC day (through its leap second, if any).
         let tai_minus_utc_now = tai_utc(utc.mjd_day())?;
@@ -191,21 +191,6 @@ impl crate::time::Ut1Source for EopTable {
     fn ut1_minus_tai_s(&self, leaps: &LeapSecondTable, utc: &Epoch) -> Result<f64, crate::time::TimeError> {
         self.at_utc(leaps, utc).map(|v| v.ut1_minus_tai_s).map_err(|e| crate::time::TimeError::Ut1 { reason: e.to_string() })
     }
-}
-
-/// 4-point Lagrange interpolation at `t` through (x_k, y_k).
-fn lagrange4(x: &[f64; 4], y: &[f64; 4], t: f64) -> f64 {
-    let mut sum = 0.0;
-    for k in 0..4 {
-        let mut w = 1.0;
-        for j in 0..4 {
-            if j != k {
-                w *= (t - x[j]) / (x[k] - x[j]);
-            }
-        }
-        sum += w * y[k];
-    }
-    sum
 }
 
 fn num(path: &Path, line: usize, s: &str, what: &str) -> Result<f64, EopError> {
@@ -347,7 +332,7 @@ mod tests {
         let f = |t: f64| 2.0 - t + 0.5 * t * t - 0.25 * t * t * t;
         let y = x.map(f);
         for t in [0.0, 0.3, 1.5, 2.9] {
-            assert!((lagrange4(&x, &y, t) - f(t)).abs() < 1e-14);
+            assert!((crate::interp::lagrange4(&x, &y, t) - f(t)).abs() < 1e-14);
         }
     }
 

@@ -30,6 +30,8 @@ pub enum EarthError {
     Station(#[from] StationError),
     #[error("{context}: {source}")]
     Time { context: String, source: TimeError },
+    #[error("ephemeris epoch: {0}")]
+    EpochScale(#[from] TimeError),
 }
 
 /// Where X, Y, s come from.

@@ -110,7 +110,7 @@ impl BodyGrid {
     #[inline]
     pub fn position_km(&self, eph: &Ephemeris, t: &TdbSeconds) -> Option<[f64; 3]> {
         let (a, b, u) = self.interval(eph, t)?;
-        Some(hermite_position_km(a, b, u, self.step_s as f64))
+        Some(crate::interp::hermite_position_km(a, b, u, self.step_s as f64))
     }
 
     /// Interpolated barycentric state (km, km/s) at `t`: the Hermite cubic
@@ -123,22 +123,10 @@ impl BodyGrid {
         // d/du of the basis (d00 = −d01); d/dt = (d/du) / h.
         let (d10, d01, d11) = (3.0 * u2 - 4.0 * u + 1.0, -6.0 * u2 + 6.0 * u, 3.0 * u2 - 2.0 * u);
         Some(StateKm {
-            position_km: hermite_position_km(a, b, u, h_s),
+            position_km: crate::interp::hermite_position_km(a, b, u, h_s),
             velocity_km_s: std::array::from_fn(|c| d01 * (b[c] - a[c]) / h_s + d10 * a[3 + c] + d11 * b[3 + c]),
         })
     }
-}
-
-/// The cubic Hermite position (km) at u ∈ [0, 1) between nodes `a` and `b`
-/// ([x, y, z km, vx, vy, vz km/s]) `h_s` seconds apart. With h00 = 1 − h01
-/// the sum is the node value plus a small increment, so it rounds once at
-/// the scale of the position (≤ 0.5 ulp, 1.6e-5 m for 1 au in km) instead of
-/// accumulating four large terms.
-#[inline]
-fn hermite_position_km(a: &[f64; 6], b: &[f64; 6], u: f64, h_s: f64) -> [f64; 3] {
-    let (u2, u3) = (u * u, u * u * u);
-    let (h10, h01, h11) = (u3 - 2.0 * u2 + u, -2.0 * u3 + 3.0 * u2, u3 - u2);
-    std::array::from_fn(|c| a[c] + (h01 * (b[c] - a[c]) + h_s * (h10 * a[3 + c] + h11 * b[3 + c])))
 }
 
 #[cfg(test)]

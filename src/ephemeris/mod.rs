@@ -7,6 +7,9 @@
 //! Reading, "Loading Files / Precedence"). States are chained through the
 //! segments' centres down to the solar-system barycentre (NAIF 0).
 
+pub mod chebyshev;
+pub mod daf;
+pub mod discrete;
 pub mod grid;
 pub mod naif;
 pub mod oem;
@@ -39,9 +42,6 @@ pub enum EphemerisError {
     /// The covering segment is of a type lapse does not evaluate.
     #[error("{body} (NAIF {id}): SPK segment type {spk_type} in {path} is not supported (types 2, 3, 9 and 13 are)")]
     UnsupportedType { body: String, id: i32, spk_type: i32, path: PathBuf },
-    /// An epoch in a scale other than TDB.
-    #[error("ephemeris epochs must be TDB, got {scale}")]
-    WrongScale { scale: String },
     /// The chain of centres does not reach the barycentre.
     #[error("the centres of {body} (NAIF {id}) loop or go deeper than 16 levels before reaching the solar-system barycentre")]
     BrokenChain { body: String, id: i32 },

@@ -64,6 +64,8 @@ pub enum TimeError {
     Ut1 { reason: String },
 
     /// An epoch outside the representable range.
+    #[error("epoch in {got}, {expected} expected")]
+    WrongScale { expected: super::TimeScale, got: super::TimeScale },
     #[error("epoch out of range: {what}")]
     OutOfRange { what: String },
 }

@@ -16,11 +16,13 @@ pub mod femto;
 pub mod leap;
 mod parse;
 pub mod relativistic;
+mod tdb_seconds;
 
 pub use epoch::{Epoch, TAI_MINUS_GPS_FS, TT_MINUS_TAI_FS, TimeScale, TimeScales, Ut1Source, tdb_fs_from_parts};
 pub use error::TimeError;
 pub use leap::{ExpiryPolicy, LeapSecondTable};
 pub use parse::parse_epoch;
+pub use tdb_seconds::TdbSeconds;
 
 /// First and last of a batch's UTC days (MJD) for sizing its grids, leaving
 /// out days outside MJD 40 000 – 100 000 (1968–2132: their rows are
