@@ -37,9 +37,7 @@ fn bench(c: &mut Criterion) {
             black_box(eph.state_ssb(399, &TdbSeconds::new(7.6e8 as i64 + t, 0.25)).unwrap())
         })
     });
-    c.bench_function("time: UTC → TDB (geocentric)", |b| {
-        b.iter_batched(&mut next_utc, |e| black_box(ts.convert(e, TimeScale::Tdb, 0.0).unwrap()), criterion::BatchSize::SmallInput)
-    });
+    c.bench_function("time: UTC → TDB (geocentric)", |b| b.iter_batched(&mut next_utc, |e| black_box(ts.convert(e, TimeScale::Tdb, 0.0).unwrap()), criterion::BatchSize::SmallInput));
     c.bench_function("pole: X, Y, s direct (IAU 2006/2000A)", |b| {
         let mut d = 0.0;
         b.iter(|| {
@@ -55,12 +53,8 @@ fn bench(c: &mut Criterion) {
             black_box(g.at(60_000.0 + d % 29.0).unwrap())
         })
     });
-    c.bench_function("station state: direct", |b| {
-        b.iter_batched(&mut next_utc, |e| black_box(direct.station_state(&eph, &st, &e).unwrap()), criterion::BatchSize::SmallInput)
-    });
-    c.bench_function("station state: grid", |b| {
-        b.iter_batched(&mut next_utc, |e| black_box(grid.station_state(&eph, &st, &e).unwrap()), criterion::BatchSize::SmallInput)
-    });
+    c.bench_function("station state: direct", |b| b.iter_batched(&mut next_utc, |e| black_box(direct.station_state(&eph, &st, &e).unwrap()), criterion::BatchSize::SmallInput));
+    c.bench_function("station state: grid", |b| b.iter_batched(&mut next_utc, |e| black_box(grid.station_state(&eph, &st, &e).unwrap()), criterion::BatchSize::SmallInput));
 }
 
 criterion_group! {

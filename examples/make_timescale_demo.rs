@@ -13,7 +13,7 @@
 use polars::prelude::*;
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
-    let mut x: u64 = 0x5EED_0F_1A95E;
+    let mut x: u64 = 0x05EE_D0F1_A95E;
     let mut ids = Vec::new();
     let mut days = Vec::new();
     let mut fracs = Vec::new();

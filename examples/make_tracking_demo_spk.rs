@@ -32,7 +32,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let au_km = 149_597_870.7;
     // Offset: 0.25 au, mostly in the ecliptic-ish plane (low declination).
     let dir = [0.62, -0.76, -0.19];
-    let norm = (dir[0] * dir[0] + dir[1] * dir[1] + dir[2] * dir[2]) as f64;
+    let norm: f64 = dir[0] * dir[0] + dir[1] * dir[1] + dir[2] * dir[2];
     let r = std::array::from_fn::<f64, 3, _>(|i| earth.position_km[i] + 0.25 * au_km * dir[i] / norm.sqrt());
     let dv = [2.9, -2.7, -1.3];
     let v = std::array::from_fn::<f64, 3, _>(|i| earth.velocity_km_s[i] + dv[i]);

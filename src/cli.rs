@@ -92,7 +92,6 @@ pub enum Command {
     },
     /// Convert epochs between time scales, printed to the femtosecond.
     Time(TimeArgs),
-
 }
 
 /// Arguments of `lapse run`.
@@ -165,7 +164,17 @@ impl TimeArgs {
             (Some(code), Some(st), Some(k)) => Some((code, st, k)),
             _ => None,
         };
-        lapse::commands::time::TimeRequest { epochs: self.epochs, from: self.from, to: self.to, file: self.file, leap_file: self.leap_file, extend_leaps: self.extend_leaps, observer_term_s: self.observer_term_s, site, eop: self.eop }
+        lapse::commands::time::TimeRequest {
+            epochs: self.epochs,
+            from: self.from,
+            to: self.to,
+            file: self.file,
+            leap_file: self.leap_file,
+            extend_leaps: self.extend_leaps,
+            observer_term_s: self.observer_term_s,
+            site,
+            eop: self.eop,
+        }
     }
 }
 

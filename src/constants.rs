@@ -79,8 +79,7 @@ pub struct Constants {
 impl Constants {
     /// The constants built into lapse (DE421).
     pub fn builtin() -> Self {
-        Self::parse(BUILTIN_CONSTANTS, Path::new("<built-in constants.toml>"))
-            .expect("the built-in constants file is validated by the test suite")
+        Self::parse(BUILTIN_CONSTANTS, Path::new("<built-in constants.toml>")).expect("the built-in constants file is validated by the test suite")
     }
 
     /// Reads a constants file.
@@ -95,13 +94,7 @@ impl Constants {
         let fmt = |message: String| ConstantsError::Format { path: path.into(), message };
         let f: File = toml::from_str(text).map_err(|e| fmt(e.to_string()))?;
         let d = &f.defining;
-        for (name, got, want) in [
-            ("c_m_s", d.c_m_s, C_M_S),
-            ("au_m", d.au_m, AU_M),
-            ("l_g", d.l_g, L_G),
-            ("l_b", d.l_b, L_B),
-            ("tdb0_s", d.tdb0_s, TDB0_S),
-        ] {
+        for (name, got, want) in [("c_m_s", d.c_m_s, C_M_S), ("au_m", d.au_m, AU_M), ("l_g", d.l_g, L_G), ("l_b", d.l_b, L_B), ("tdb0_s", d.tdb0_s, TDB0_S)] {
             if got != want {
                 return Err(fmt(format!("defining constant {name} = {got:e} differs from the IAU/SI value {want:e}")));
             }

@@ -156,7 +156,7 @@ pub fn hermite_coefficients_lanes<const CAP2: usize>(x: &[f64], y: &[[f64; LANES
         if k % 2 == 0 {
             col[k] = dy[k / 2];
         } else {
-            let (hi, lo, d) = (y[(k + 1) / 2], y[k / 2], z[k + 1] - z[k]);
+            let (hi, lo, d) = (y[k.div_ceil(2)], y[k / 2], z[k + 1] - z[k]);
             for l in 0..LANES {
                 col[k][l] = (hi[l] - lo[l]) / d;
             }
@@ -213,7 +213,7 @@ fn hermite_at_zero(x: &[f64], y: &[f64], dy: &[f64]) -> (f64, f64) {
     // First column: derivatives on repeated nodes.
     let mut col = [0.0f64; 2 * REFERENCE_CAP];
     for k in 0..n - 1 {
-        col[k] = if k % 2 == 0 { dy[k / 2] } else { (y[(k + 1) / 2] - y[k / 2]) / (z[k + 1] - z[k]) };
+        col[k] = if k % 2 == 0 { dy[k / 2] } else { (y[k.div_ceil(2)] - y[k / 2]) / (z[k + 1] - z[k]) };
     }
     coef[1] = col[0];
     for m in 2..n {
@@ -300,5 +300,4 @@ mod tests {
             }
         }
     }
-
 }

@@ -8,7 +8,7 @@
 //! rules and licensed practice take precedence.
 
 // Layers, lowest first; a module uses only modules above it in this list
-// (checked by `tests/layers.rs`).
+// (checked by `tests/layers.rs`; rustfmt.toml keeps this order).
 pub mod interp;
 pub mod parallel;
 pub mod reject;

@@ -86,12 +86,7 @@ fn write_pipeline(dir: &Path, body: &str) -> PathBuf {
 #[test]
 fn timescales_pipeline_rejects_bad_rows_and_counts_them() {
     let d = tmpdir("pipeline");
-    write_epochs(
-        &d.join("in.parquet"),
-        &["a", "b", "c", "d", "e"],
-        &[57_753, 58_000, 40_000, 58_001, 99_000],
-        &[86_400.5 / 86_401.0, 0.5, 0.1, f64::NAN, 0.2],
-    );
+    write_epochs(&d.join("in.parquet"), &["a", "b", "c", "d", "e"], &[57_753, 58_000, 40_000, 58_001, 99_000], &[86_400.5 / 86_401.0, 0.5, 0.1, f64::NAN, 0.2]);
     let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"in.parquet\"\n[output]\npath = \"out/out.parquet\"\n");
     let o = lapse(&["run", p.to_str().unwrap()]);
     let (out, err) = text(&o);

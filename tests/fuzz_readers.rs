@@ -28,9 +28,9 @@ fn mutate(seed: &[u8], ops: &[(u8, usize, u8)]) -> Vec<u8> {
         }
         let i = pos % v.len();
         match kind % 5 {
-            0 => v[i] = b,                 // change a byte
-            1 => v.truncate(i),            // truncate
-            2 => v.insert(i, b),           // insert a byte
+            0 => v[i] = b,       // change a byte
+            1 => v.truncate(i),  // truncate
+            2 => v.insert(i, b), // insert a byte
             3 => {
                 // drop the line containing i
                 let start = v[..i].iter().rposition(|c| *c == b'\n').map(|p| p + 1).unwrap_or(0);

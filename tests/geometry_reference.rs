@@ -137,7 +137,12 @@ fn station_gcrs_matches_erfa_chain() {
     }
     eprintln!(
         "stations vs ERFA over {} epochs: max |Δx| {:.3e} m per axis, max |Δv| {:.3e} m/s; grid vs direct max {:.3e} m; ITRF max {:.1e} m; observer term max {:.3e} s",
-        rows.len(), max_p, max_v, max_grid, max_itrf, max_obs
+        rows.len(),
+        max_p,
+        max_v,
+        max_grid,
+        max_itrf,
+        max_obs
     );
 }
 

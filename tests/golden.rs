@@ -20,10 +20,7 @@ fn every_pipeline_matches_its_golden_output() {
     for p in &pipelines {
         let stem = p.file_stem().unwrap().to_string_lossy().into_owned();
         let out = tmp.join(format!("{stem}.parquet"));
-        let o = Command::new(env!("CARGO_BIN_EXE_lapse"))
-            .args(["run", p.to_str().unwrap(), "--output", out.to_str().unwrap()])
-            .output()
-            .unwrap();
+        let o = Command::new(env!("CARGO_BIN_EXE_lapse")).args(["run", p.to_str().unwrap(), "--output", out.to_str().unwrap()]).output().unwrap();
         assert_eq!(o.status.code(), Some(0), "{stem}: {}", String::from_utf8_lossy(&o.stderr));
         let golden = root.join("tests/golden").join(format!("{stem}.parquet"));
         if bless {

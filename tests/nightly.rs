@@ -196,7 +196,9 @@ fn killed_run_resumes_to_the_same_outputs() {
     let mut child = Command::new(env!("CARGO_BIN_EXE_lapse")).args(["run", p.to_str().unwrap(), "-q", "--no-plots", "--threads", "1"]).stdout(Stdio::null()).stderr(Stdio::null()).spawn().unwrap();
     let started = std::time::Instant::now();
     loop {
-        let done = std::fs::read_dir(d.join("out")).map(|r| r.flatten().filter(|e| e.path().extension().is_some_and(|x| x == "parquet") && !e.path().to_string_lossy().contains("rejects")).count()).unwrap_or(0);
+        let done = std::fs::read_dir(d.join("out"))
+            .map(|r| r.flatten().filter(|e| e.path().extension().is_some_and(|x| x == "parquet") && !e.path().to_string_lossy().contains("rejects")).count())
+            .unwrap_or(0);
         if done >= 1 || started.elapsed().as_secs() > 60 {
             break;
         }
@@ -204,7 +206,8 @@ fn killed_run_resumes_to_the_same_outputs() {
     }
     child.kill().unwrap();
     let _ = child.wait();
-    let finished_before = std::fs::read_dir(d.join("out")).unwrap().flatten().filter(|e| e.path().extension().is_some_and(|x| x == "parquet") && !e.path().to_string_lossy().contains("rejects")).count();
+    let finished_before =
+        std::fs::read_dir(d.join("out")).unwrap().flatten().filter(|e| e.path().extension().is_some_and(|x| x == "parquet") && !e.path().to_string_lossy().contains("rejects")).count();
     assert!(finished_before < 8, "the run finished before it could be killed; make the partitions larger");
     // Every output present after the kill is complete and readable.
     for e in std::fs::read_dir(d.join("out")).unwrap().flatten() {
@@ -223,7 +226,11 @@ fn killed_run_resumes_to_the_same_outputs() {
         let (a, b) = (read(&d.join("out").join(&name)), read(&d.join("ref").join(&name)));
         assert_eq!(column_bits(&a), column_bits(&b), "{name}");
         let md = |p: &Path| -> Vec<(String, String)> {
-            lapse::io::read_parquet_metadata(p).unwrap().into_iter().filter(|(k, _)| k != "lapse.run.started_utc" && !k.ends_with(".path") && k != "lapse.pipeline.text" && k != "lapse.pipeline.sha256").collect()
+            lapse::io::read_parquet_metadata(p)
+                .unwrap()
+                .into_iter()
+                .filter(|(k, _)| k != "lapse.run.started_utc" && !k.ends_with(".path") && k != "lapse.pipeline.text" && k != "lapse.pipeline.sha256")
+                .collect()
         };
         assert_eq!(md(&d.join("out").join(&name)), md(&d.join("ref").join(&name)));
     }

@@ -10,8 +10,8 @@ use common::*;
 use std::path::{Path, PathBuf};
 
 use lapse::delays::Source;
-use lapse::pipeline::PipelineFile;
 use lapse::kinds::pulsar::Pulsar;
+use lapse::pipeline::PipelineFile;
 use lapse::time::TimeScale;
 use polars::prelude::*;
 
@@ -52,10 +52,11 @@ fn i64s(df: &DataFrame, c: &str) -> Vec<i64> {
 #[test]
 fn delays_match_erfa_and_jplephem() {
     let d = tmpdir("reference");
-    let p = pipeline(&d, Path::new("/unused.parquet"), &[
-        ("time_scale = \"site\"", "time_scale = \"utc\""),
-        ("shapiro_bodies = [\"sun\", \"venus\", \"jupiter\", \"saturn\", \"uranus\", \"neptune\"]", "shapiro_bodies = [\"sun\"]"),
-    ]);
+    let p = pipeline(
+        &d,
+        Path::new("/unused.parquet"),
+        &[("time_scale = \"site\"", "time_scale = \"utc\""), ("shapiro_bodies = [\"sun\", \"venus\", \"jupiter\", \"saturn\", \"uranus\", \"neptune\"]", "shapiro_bodies = [\"sun\"]")],
+    );
     let mut lp = Pulsar::load(&PipelineFile::read(&p).unwrap()).unwrap();
     let text = std::fs::read_to_string(root().join("tests/fixtures/pulsar_sweep.csv")).unwrap();
     let rows: Vec<Vec<&str>> = text.lines().filter(|l| !l.starts_with('#')).skip(1).map(|l| l.split(',').collect()).collect();
@@ -117,9 +118,10 @@ fn noiseless_synthetic_arrivals_give_sub_ns_residuals() {
     }
     // The per-body columns add up to shapiro_s.
     let bodies = ["sun", "venus", "jupiter", "saturn", "uranus", "neptune"];
-    for i in 0..out.height() {
-        let total: f64 = bodies.iter().map(|b| f64s(&out, &format!("shapiro_{b}_s"))[i]).sum();
-        assert!((total - sh[i]).abs() < 1e-18);
+    let per_body: Vec<Vec<f64>> = bodies.iter().map(|b| f64s(&out, &format!("shapiro_{b}_s"))).collect();
+    for (i, sh_i) in sh.iter().enumerate() {
+        let total: f64 = per_body.iter().map(|c| c[i]).sum();
+        assert!((total - sh_i).abs() < 1e-18);
     }
     // clock_s is the chain total: FALCON-RT ≈ +2.5 µs, KESTREL-1 ≈ −0.8 µs.
     let clock = f64s(&out, "clock_s");
@@ -149,7 +151,9 @@ fn every_row_is_accounted_for() {
     assert_eq!(f64s(&out, "dispersion_s")[1], 0.0, "infinite frequency: no dispersion");
     assert!(out.column("backend").is_ok(), "pass-through column");
     let reasons: Vec<String> = rej.column("reason").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
-    for needle in ["unknown site", "arrival_mjd_frac out of range", "freq_mhz invalid", "sigma_us invalid", "no clock chain for site 'OSPREY-3'", "clock correction unavailable", "missing value: site is null"] {
+    for needle in
+        ["unknown site", "arrival_mjd_frac out of range", "freq_mhz invalid", "sigma_us invalid", "no clock chain for site 'OSPREY-3'", "clock correction unavailable", "missing value: site is null"]
+    {
         assert!(reasons.iter().any(|r| r.contains(needle)), "no reason with '{needle}': {reasons:?}");
     }
     // Every reject carries a stable code beside its message.
@@ -193,8 +197,14 @@ fn bad_tables_and_pipelines_stop_before_writing() {
         assert!(!d.join("out.parquet").exists(), "nothing may be written");
     };
     check(&mut df!("obs_id" => ["a"], "site" => ["FALCON-RT"], "arrival_mjd_day" => [59_000i64], "arrival_mjd_frac" => [0.3], "freq_mhz" => [1400.0]).unwrap(), "missing column 'sigma_us'");
-    check(&mut df!("obs_id" => ["a"], "site" => ["FALCON-RT"], "arrival_mjd_day" => [59_000.0], "arrival_mjd_frac" => [0.3], "freq_mhz" => [1400.0], "sigma_us" => [1.0]).unwrap(), "column 'arrival_mjd_day' has type");
-    check(&mut df!("obs_id" => ["a", "a"], "site" => ["FALCON-RT"; 2], "arrival_mjd_day" => [59_000i64; 2], "arrival_mjd_frac" => [0.3; 2], "freq_mhz" => [1400.0; 2], "sigma_us" => [1.0; 2]).unwrap(), "duplicate obs_id 'a'");
+    check(
+        &mut df!("obs_id" => ["a"], "site" => ["FALCON-RT"], "arrival_mjd_day" => [59_000.0], "arrival_mjd_frac" => [0.3], "freq_mhz" => [1400.0], "sigma_us" => [1.0]).unwrap(),
+        "column 'arrival_mjd_day' has type",
+    );
+    check(
+        &mut df!("obs_id" => ["a", "a"], "site" => ["FALCON-RT"; 2], "arrival_mjd_day" => [59_000i64; 2], "arrival_mjd_frac" => [0.3; 2], "freq_mhz" => [1400.0; 2], "sigma_us" => [1.0; 2]).unwrap(),
+        "duplicate obs_id 'a'",
+    );
     // Unknown keys and bad values in the pipeline.
     let p = pipeline(&d, &toas, &[("[spin]", "[spin]\nfrequncy_typo = 3.0")]);
     let o = lapse(&["run", p.to_str().unwrap()]);

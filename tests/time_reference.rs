@@ -119,13 +119,7 @@ fn leap_second_2016_12_31_fraction_convention() {
     // An f64 fraction of a 86 401 s day resolves 86401·2⁻⁵³ s ≈ 9.6 ps.
     const F64_FRACTION_RESOLUTION_S: f64 = 9.6e-12;
     let ts = TimeScales::builtin();
-    for (sod_s, iso) in [
-        (0.0, "2016-12-31T00:00:00"),
-        (43_200.0, "2016-12-31T1"),
-        (86_399.5, "2016-12-31T23:59:59."),
-        (86_400.0, "2016-12-31T23:59:60.0000"),
-        (86_400.75, "2016-12-31T23:59:60.7"),
-    ] {
+    for (sod_s, iso) in [(0.0, "2016-12-31T00:00:00"), (43_200.0, "2016-12-31T1"), (86_399.5, "2016-12-31T23:59:59."), (86_400.0, "2016-12-31T23:59:60.0000"), (86_400.75, "2016-12-31T23:59:60.7")] {
         let e = ts.epoch_from_mjd(TimeScale::Utc, 57_753, sod_s / 86_401.0).unwrap();
         assert!(e.to_string().starts_with(iso), "{sod_s}: {e}");
         assert!((fs_to_seconds(e.fs_of_day()) - sod_s).abs() <= F64_FRACTION_RESOLUTION_S, "{sod_s}: {e}");

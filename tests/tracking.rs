@@ -177,7 +177,8 @@ fn doppler_sign_and_scale_follow_the_range() {
         "obs_id" => ["a", "b", "c"], "kind" => kinds, "rx_station" => ["KESTREL-1"; 3], "tx_station" => ["KESTREL-1"; 3],
         "rx_mjd_day" => [60_780i64; 3], "rx_mjd_frac" => days.map(|x| x - 60_780.0), "count_s" => [0.0, 0.0, 60.0],
         "uplink_hz" => [7.1644e9; 3], "value" => [250.0, 250.0, 1.0], "sigma" => [1e-9, 1e-9, 1e-3]
-    ).unwrap();
+    )
+    .unwrap();
     ParquetWriter::new(std::fs::File::create(&input).unwrap()).finish(&mut df).unwrap();
     let o = lapse(&["run", pipeline(&d, &input).to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
@@ -196,12 +197,14 @@ fn every_tracking_row_is_accounted_for() {
     let ids = ["ok", "kind", "station", "count", "coverage", "nan", "neg", "three", "nullrx"];
     let kinds = ["doppler_2way", "range_xyz", "doppler_2way", "doppler_2way", "light_time_2way", "doppler_2way", "light_time_2way", "doppler_3way", "doppler_2way"];
     let rx: Vec<Option<&str>> = vec![Some("KESTREL-1"), Some("KESTREL-1"), Some("NOWHERE"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), None];
-    let tx: Vec<Option<&str>> = vec![Some("KESTREL-1"), Some("KESTREL-1"), Some("NOWHERE"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1")];
+    let tx: Vec<Option<&str>> =
+        vec![Some("KESTREL-1"), Some("KESTREL-1"), Some("NOWHERE"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1"), Some("KESTREL-1")];
     let days = [60_780i64, 60_780, 60_780, 60_780, 60_790, 60_780, 60_780, 60_780, 60_780];
     let counts = [60.0, 60.0, 60.0, 0.0, 0.0, 60.0, 0.0, 60.0, 60.0];
     let values = [1.0, 1.0, 1.0, 1.0, 250.0, f64::NAN, -3.0, 1.0, 1.0];
     let mut df = df!("obs_id" => ids, "kind" => kinds, "rx_station" => rx, "tx_station" => tx, "rx_mjd_day" => days, "rx_mjd_frac" => [0.25; 9],
-        "count_s" => counts, "uplink_hz" => [7.1644e9; 9], "value" => values, "sigma" => [1e-3; 9], "pass" => [1i64; 9]).unwrap();
+        "count_s" => counts, "uplink_hz" => [7.1644e9; 9], "value" => values, "sigma" => [1e-3; 9], "pass" => [1i64; 9])
+    .unwrap();
     ParquetWriter::new(std::fs::File::create(&input).unwrap()).finish(&mut df).unwrap();
     let o = lapse(&["run", pipeline(&d, &input).to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
@@ -211,7 +214,16 @@ fn every_tracking_row_is_accounted_for() {
     assert_eq!(out.height(), 1);
     assert!(out.column("pass").is_ok());
     let reasons: Vec<String> = rej.column("reason").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
-    for needle in ["unknown kind 'range_xyz'", "unknown station", "count_s invalid", "spacecraft ephemeris", "value invalid: NaN", "light time -3 s must be positive", "three-way Doppler needs a tx_station", "missing value: rx_station is null"] {
+    for needle in [
+        "unknown kind 'range_xyz'",
+        "unknown station",
+        "count_s invalid",
+        "spacecraft ephemeris",
+        "value invalid: NaN",
+        "light time -3 s must be positive",
+        "three-way Doppler needs a tx_station",
+        "missing value: rx_station is null",
+    ] {
         assert!(reasons.iter().any(|r| r.contains(needle)), "no reason with '{needle}': {reasons:?}");
     }
     let codes: Vec<String> = rej.column("reason_code").unwrap().str().unwrap().iter().map(|s| s.unwrap().to_string()).collect();
@@ -261,7 +273,9 @@ fn oem_of_the_demo_trajectory_matches_its_spk() {
         let ep = Epoch::from_uniform_fs(TimeScale::Tdb, J2000_FS + w as i128 * FS_PER_S + seconds_to_fs(s - w).unwrap()).unwrap();
         ep.to_string().trim_end_matches(" TDB").to_string()
     };
-    let mut text = String::from("CCSDS_OEM_VERS = 2.0\nCREATION_DATE = 2026-12-01T00:00:00\nORIGINATOR = LAPSE\nMETA_START\nOBJECT_NAME = LAPSE-1\nOBJECT_ID = 2025-999A\nCENTER_NAME = SOLAR SYSTEM BARYCENTER\nREF_FRAME = ICRF\nTIME_SYSTEM = TDB\n");
+    let mut text = String::from(
+        "CCSDS_OEM_VERS = 2.0\nCREATION_DATE = 2026-12-01T00:00:00\nORIGINATOR = LAPSE\nMETA_START\nOBJECT_NAME = LAPSE-1\nOBJECT_ID = 2025-999A\nCENTER_NAME = SOLAR SYSTEM BARYCENTER\nREF_FRAME = ICRF\nTIME_SYSTEM = TDB\n",
+    );
     text += &format!("START_TIME = {}\nSTOP_TIME = {}\nINTERPOLATION = HERMITE\nINTERPOLATION_DEGREE = 11\nMETA_STOP\n", iso(d.epochs_s[0]), iso(*d.epochs_s.last().unwrap()));
     for (t, s) in d.epochs_s.iter().zip(&d.states) {
         text += &format!("{} {:.17e} {:.17e} {:.17e} {:.17e} {:.17e} {:.17e}\n", iso(*t), s[0], s[1], s[2], s[3], s[4], s[5]);
@@ -339,8 +353,8 @@ fn fast_path_agrees_with_direct_light_time_solution() {
     // station within 1 mm.
     const FAST_VS_DIRECT_TIME_S: f64 = 1e-12;
     const FAST_VS_DIRECT_POSITION_M: f64 = 1e-3;
-    use lapse::pipeline::PipelineFile;
     use lapse::kinds::tracking::Tracking;
+    use lapse::pipeline::PipelineFile;
     use lapse::tracking::observables::{Kind, Measurement};
     let p = root().join("pipelines/tracking_demo.toml");
     let direct = Tracking::load(&PipelineFile::read(&p).unwrap()).unwrap().ctx;

@@ -18,8 +18,8 @@ use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::{Arc, Mutex, OnceLock};
 
-use lapse::pipeline::PipelineFile;
 use lapse::commands::engine::BatchEngine;
+use lapse::pipeline::PipelineFile;
 use polars::prelude::{CompatLevel, DataFrame};
 use polars_arrow::array::{Array, StructArray};
 use polars_arrow::datatypes::{ArrowDataType, Field as ArrowField};
@@ -64,10 +64,7 @@ fn engine(py: Python<'_>, pipeline: &Path) -> PyResult<Arc<Mutex<BatchEngine>>> 
 fn import_batch(obj: &Bound<'_, PyAny>) -> PyResult<DataFrame> {
     let py = obj.py();
     if !obj.hasattr("__arrow_c_array__")? {
-        return Err(PyTypeError::new_err(format!(
-            "expected an Arrow record batch (an object with __arrow_c_array__, e.g. pyarrow.RecordBatch), got {}",
-            obj.get_type().name()?
-        )));
+        return Err(PyTypeError::new_err(format!("expected an Arrow record batch (an object with __arrow_c_array__, e.g. pyarrow.RecordBatch), got {}", obj.get_type().name()?)));
     }
     let pair = obj.call_method0("__arrow_c_array__")?;
     let pair = pair.cast::<PyTuple>().map_err(|_| PyTypeError::new_err("__arrow_c_array__ must return a (schema, array) tuple of capsules"))?;
@@ -149,7 +146,8 @@ impl ArrowBatch {
     #[pyo3(signature = (requested_schema=None))]
     fn __arrow_c_array__(&self, py: Python<'_>, requested_schema: Option<Py<PyAny>>) -> PyResult<(Py<PyAny>, Py<PyAny>)> {
         let _ = requested_schema; // the batch is given in its own schema
-        let (schema, array) = self.c.lock().map_err(lapse_err)?.take().ok_or_else(|| PyValueError::new_err("this lapse batch was already exported; convert it once, e.g. pyarrow.record_batch(batch)"))?;
+        let (schema, array) =
+            self.c.lock().map_err(lapse_err)?.take().ok_or_else(|| PyValueError::new_err("this lapse batch was already exported; convert it once, e.g. pyarrow.record_batch(batch)"))?;
         Ok((capsule(py, schema, SCHEMA_CAPSULE)?, capsule(py, array, ARRAY_CAPSULE)?))
     }
 
@@ -169,11 +167,7 @@ fn export_frame(mut df: DataFrame) -> ArrowBatch {
     let dtype = ArrowDataType::Struct(fields);
     let s = StructArray::new(dtype.clone(), df.height(), arrays, None);
     let field = ArrowField::new("".into(), dtype, false);
-    ArrowBatch {
-        c: Mutex::new(Some((ffi::export_field_to_c(&field), ffi::export_array_to_c(Box::new(s))))),
-        num_rows: df.height(),
-        num_columns: df.width(),
-    }
+    ArrowBatch { c: Mutex::new(Some((ffi::export_field_to_c(&field), ffi::export_array_to_c(Box::new(s))))), num_rows: df.height(), num_columns: df.width() }
 }
 
 /// Runs a pipeline on one batch: returns (output, rejects) as ArrowBatch

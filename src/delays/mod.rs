@@ -248,7 +248,7 @@ mod tests {
     use super::*;
 
     /// GM_sun from the DE421 header (data/constants.toml), m³/s².
-    const GM_SUN_M3_S2: f64 = 132_712_440_040.9446e9;
+    const GM_SUN_M3_S2: f64 = 132_712_440_040.944_6e9;
 
     #[test]
     fn shapiro_check_values() {

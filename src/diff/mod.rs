@@ -333,17 +333,7 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
     drop(ib);
     let only_b: Vec<String> = (0..kb.len()).filter(|j| !matched_b[*j]).map(|j| kb.get(j).to_string()).collect();
 
-    let mut report = DiffReport {
-        path_a: path_a.into(),
-        path_b: path_b.into(),
-        keys: keys.to_vec(),
-        rows_a: ka.len(),
-        rows_b: kb.len(),
-        matched: pairs.len(),
-        only_a,
-        only_b,
-        ..Default::default()
-    };
+    let mut report = DiffReport { path_a: path_a.into(), path_b: path_b.into(), keys: keys.to_vec(), rows_a: ka.len(), rows_b: kb.len(), matched: pairs.len(), only_a, only_b, ..Default::default() };
     let tb: HashMap<&str, &DataType> = sb.iter().map(|(n, t)| (n.as_str(), t)).collect();
     let ta: HashMap<&str, &DataType> = sa.iter().map(|(n, t)| (n.as_str(), t)).collect();
     report.columns_only_a = sa.iter().filter(|(n, _)| !tb.contains_key(n.as_str())).map(|(n, _)| n.clone()).collect();
@@ -362,7 +352,10 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
         let tolerance = tol.of(name);
         let ca = read_columns(path_a, std::slice::from_ref(name))?;
         let cb = read_columns(path_b, std::slice::from_ref(name))?;
-        let (ca, cb) = (ca.column(name).map_err(|e| IoError::Parquet { path: path_a.into(), message: e.to_string() })?, cb.column(name).map_err(|e| IoError::Parquet { path: path_b.into(), message: e.to_string() })?);
+        let (ca, cb) = (
+            ca.column(name).map_err(|e| IoError::Parquet { path: path_a.into(), message: e.to_string() })?,
+            cb.column(name).map_err(|e| IoError::Parquet { path: path_b.into(), message: e.to_string() })?,
+        );
         let numeric = is_numeric(dta) && is_numeric(dtb);
         let mut cd = ColumnDiff {
             column: name.clone(),
@@ -479,7 +472,13 @@ pub fn write_rows(rows: RowDiffs, key_name: &str, path: &Path) -> Result<(), Dif
 }
 
 fn fmt_delta(x: f64) -> String {
-    if x == 0.0 { "0".into() } else if x.is_infinite() { "NaN/≠".into() } else { format!("{x:.3e}") }
+    if x == 0.0 {
+        "0".into()
+    } else if x.is_infinite() {
+        "NaN/≠".into()
+    } else {
+        format!("{x:.3e}")
+    }
 }
 
 /// The report as a plain-text table (stdout) or Markdown.
@@ -528,8 +527,16 @@ pub fn render(r: &DiffReport, markdown: bool) -> String {
     } else {
         let _ = writeln!(s, "{h}provenance entries that differ:");
         for p in &r.provenance {
-            let short = |v: &Option<String>| v.as_deref().map(|x| if x.len() > 60 { format!("{}…", &x[..x.char_indices().nth(60).map(|c| c.0).unwrap_or(x.len())]) } else { x.to_string() }).unwrap_or_else(|| "(absent)".into());
-            let label = if p.is_result { "[result]" } else if p.explains { "[explains]" } else { "[does not explain]" };
+            let short = |v: &Option<String>| {
+                v.as_deref().map(|x| if x.len() > 60 { format!("{}…", &x[..x.char_indices().nth(60).map(|c| c.0).unwrap_or(x.len())]) } else { x.to_string() }).unwrap_or_else(|| "(absent)".into())
+            };
+            let label = if p.is_result {
+                "[result]"
+            } else if p.explains {
+                "[explains]"
+            } else {
+                "[does not explain]"
+            };
             let _ = writeln!(s, "  {label} {}: {} → {}", p.key, short(&p.a).replace('\n', " "), short(&p.b).replace('\n', " "));
         }
         let explaining = r.provenance.iter().filter(|p| p.explains).count();

@@ -89,7 +89,7 @@ pub struct EopTable {
     rows: Vec<EopRow>,
 }
 
-fn field<'a>(line: &'a str, a: usize, b: usize) -> &'a str {
+fn field(line: &str, a: usize, b: usize) -> &str {
     // 1-based inclusive byte columns, as in the IERS ReadMe.
     line.get(a - 1..b.min(line.len())).unwrap_or("").trim()
 }
@@ -163,9 +163,7 @@ impl EopTable {
         let start = i.saturating_sub(1).min(self.rows.len() - 4);
         let nodes: [EopRow; 4] = std::array::from_fn(|k| self.rows[start + k]);
         let x: [f64; 4] = std::array::from_fn(|k| nodes[k].mjd as f64);
-        let tai_utc = |mjd: i64| -> Result<f64, EopError> {
-            leaps.tai_minus_utc_s(mjd).map(|v| v as f64).map_err(|source| EopError::Time { mjd, source })
-        };
+        let tai_utc = |mjd: i64| -> Result<f64, EopError> { leaps.tai_minus_utc_s(mjd).map(|v| v as f64).map_err(|source| EopError::Time { mjd, source }) };
         let mut ut1_tai = [0.0; 4];
         for k in 0..4 {
             ut1_tai[k] = nodes[k].ut1_minus_utc_s - tai_utc(nodes[k].mjd)?;
@@ -202,10 +200,10 @@ fn num(path: &Path, line: usize, s: &str, what: &str) -> Result<f64, EopError> {
 }
 
 fn push_row(rows: &mut Vec<EopRow>, row: EopRow, path: &Path, line: usize) -> Result<(), EopError> {
-    if let Some(prev) = rows.last() {
-        if row.mjd != prev.mjd + 1 {
-            return Err(EopError::Format { path: path.into(), line, reason: format!("MJD {} does not follow MJD {} (daily rows expected)", row.mjd, prev.mjd) });
-        }
+    if let Some(prev) = rows.last()
+        && row.mjd != prev.mjd + 1
+    {
+        return Err(EopError::Format { path: path.into(), line, reason: format!("MJD {} does not follow MJD {} (daily rows expected)", row.mjd, prev.mjd) });
     }
     rows.push(row);
     Ok(())

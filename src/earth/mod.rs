@@ -19,6 +19,10 @@ use crate::time::{Epoch, TimeError, TimeScale, TimeScales, tdb_fs_from_parts};
 /// Speed of light, m/s.
 const C_M_S: f64 = crate::time::clock_rate::C_M_S;
 
+/// GCRS position (m), velocity (m/s) and local vertical (unit) of a station,
+/// the EOP values used and the epoch in TT.
+type GcrsWithUp = (Vector3<f64>, Vector3<f64>, Vector3<f64>, EopValues, Epoch);
+
 /// Errors of station-state computations.
 #[derive(Debug, thiserror::Error)]
 pub enum EarthError {
@@ -167,7 +171,7 @@ impl EarthModel {
     }
 
     /// As [`Self::station_gcrs`], with the local vertical in the GCRS.
-    fn station_gcrs_with_up(&self, station: &Station, utc: &Epoch) -> Result<(Vector3<f64>, Vector3<f64>, Vector3<f64>, EopValues, Epoch), EarthError> {
+    fn station_gcrs_with_up(&self, station: &Station, utc: &Epoch) -> Result<GcrsWithUp, EarthError> {
         let (r, eop, tt) = self.rotation_at(utc)?;
         let mjd = utc.mjd_day() as f64 + ratio_to_f64(utc.fs_of_day(), FS_PER_DAY);
         let x = Vector3::from(station.itrf_at_m(mjd));
@@ -198,9 +202,7 @@ impl EarthModel {
         // both the geocentric and the topocentric TDB.
         let dtdb_geo_s = self.time.tdb_minus_tt_geocentric_s(tt.label_fs());
         let tdb_at = |obs_s: f64| -> Result<Epoch, EarthError> {
-            tdb_fs_from_parts(tt.label_fs(), dtdb_geo_s, obs_s)
-                .and_then(|fs| Epoch::from_uniform_fs(TimeScale::Tdb, fs))
-                .map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })
+            tdb_fs_from_parts(tt.label_fs(), dtdb_geo_s, obs_s).and_then(|fs| Epoch::from_uniform_fs(TimeScale::Tdb, fs)).map_err(|source| EarthError::Time { context: "TT → TDB".into(), source })
         };
         let geo_tdb = tdb_at(0.0)?;
         let earth_geo = eph.earth_state_ssb(&TdbSeconds::from_epoch(&geo_tdb)?)?;
@@ -211,24 +213,10 @@ impl EarthModel {
         // observer term (≤ 2.1 µs), over which a linear step is exact to
         // a·δ²/2 ≈ 1e-14 m, so the ephemeris is not evaluated again.
         let dt_s = ratio_to_f64(tdb.label_fs() - geo_tdb.label_fs(), crate::time::femto::FS_PER_S);
-        let earth = StateKm {
-            position_km: std::array::from_fn(|i| earth_geo.position_km[i] + earth_geo.velocity_km_s[i] * dt_s),
-            velocity_km_s: earth_geo.velocity_km_s,
-        };
+        let earth = StateKm { position_km: std::array::from_fn(|i| earth_geo.position_km[i] + earth_geo.velocity_km_s[i] * dt_s), velocity_km_s: earth_geo.velocity_km_s };
         let bcrs_position_m = Vector3::from(earth.position_km) * 1e3 + x_gcrs;
         let bcrs_velocity_m_s = Vector3::from(earth.velocity_km_s) * 1e3 + v_gcrs;
-        Ok(StationState {
-            tt,
-            tdb,
-            observer_term_s,
-            eop,
-            gcrs_position_m: x_gcrs,
-            gcrs_velocity_m_s: v_gcrs,
-            earth_ssb: earth,
-            up_gcrs,
-            bcrs_position_m,
-            bcrs_velocity_m_s,
-        })
+        Ok(StationState { tt, tdb, observer_term_s, eop, gcrs_position_m: x_gcrs, gcrs_velocity_m_s: v_gcrs, earth_ssb: earth, up_gcrs, bcrs_position_m, bcrs_velocity_m_s })
     }
 
     /// The station state at an epoch given in any scale (at the station).

@@ -268,7 +268,13 @@ mod tests {
             let b = CipXys::direct(2_400_000.5, mjd);
             // 1.6e-13 rad = 1e-3 mm at the Earth's surface.
             let tol_rad = 1.6e-13;
-            assert!((a.x_rad - b.x_rad).abs() < tol_rad && (a.y_rad - b.y_rad).abs() < tol_rad && (a.s_rad - b.s_rad).abs() < tol_rad, "{mjd}: {:e} {:e} {:e}", a.x_rad - b.x_rad, a.y_rad - b.y_rad, a.s_rad - b.s_rad);
+            assert!(
+                (a.x_rad - b.x_rad).abs() < tol_rad && (a.y_rad - b.y_rad).abs() < tol_rad && (a.s_rad - b.s_rad).abs() < tol_rad,
+                "{mjd}: {:e} {:e} {:e}",
+                a.x_rad - b.x_rad,
+                a.y_rad - b.y_rad,
+                a.s_rad - b.s_rad
+            );
         }
         assert!(g.at(57_990.0).is_none());
     }

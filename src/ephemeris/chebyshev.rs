@@ -148,7 +148,7 @@ pub(crate) fn parse_chebyshev(buf: &Arc<KernelBytes>, first: usize, n_doubles: u
     }
     let seg = &buf.doubles()[first..first + n_doubles];
     let [init_s, interval_s, rsize, n] = [seg[n_doubles - 4], seg[n_doubles - 3], seg[n_doubles - 2], seg[n_doubles - 1]];
-    if !init_s.is_finite() || !(interval_s.is_finite() && interval_s > 0.0) {
+    if !(init_s.is_finite() && interval_s.is_finite() && interval_s > 0.0) {
         return Err(SegmentFormatError(format!("bad directory: init {init_s}, interval {interval_s}")));
     }
     if !(rsize.is_finite() && rsize >= 5.0 && rsize.fract() == 0.0 && n.is_finite() && n >= 1.0 && n.fract() == 0.0) {
@@ -225,5 +225,4 @@ mod tests {
     fn cheb(d: &[f64]) -> Result<ChebyshevData, SegmentFormatError> {
         parse_chebyshev(&Arc::new(KernelBytes::Owned(d.to_vec(), d.len() * 8)), 0, d.len(), false)
     }
-
 }

@@ -75,15 +75,7 @@ impl SpkKernel {
                 9 | 13 => SegmentData::Discrete(parse_discrete(raw, s.data_type_i == 13).map_err(seg_err)?),
                 _ => SegmentData::Unsupported,
             };
-            Ok(Segment {
-                target: s.target_id,
-                center: s.center_id,
-                frame: s.frame_id,
-                spk_type: s.data_type_i,
-                start_s: s.start_epoch_et_s,
-                end_s: s.end_epoch_et_s,
-                data,
-            })
+            Ok(Segment { target: s.target_id, center: s.center_id, frame: s.frame_id, spk_type: s.data_type_i, start_s: s.start_epoch_et_s, end_s: s.end_epoch_et_s, data })
         });
         // The first bad segment in file order names the error, as serially.
         let segments = segments.collect::<Vec<_>>().into_iter().collect::<Result<Vec<_>, _>>()?;
@@ -239,5 +231,4 @@ mod tests {
             assert_eq!(a.evaluate(&t).map(|s| s.position_km), b.evaluate(&t).map(|s| s.position_km));
         }
     }
-
 }

@@ -114,7 +114,7 @@ impl DiscreteStates {
         let n = self.epochs_s.len();
         let w = self.window;
         let low = self.epochs_s.partition_point(|e| t.minus_f64_s(*e) >= 0.0).saturating_sub(1);
-        let first = if w % 2 == 0 {
+        let first = if w.is_multiple_of(2) {
             (low + 1).saturating_sub(w / 2)
         } else {
             let near = if low + 1 < n && t.minus_f64_s(self.epochs_s[low]).abs() > t.minus_f64_s(self.epochs_s[low + 1]).abs() { low + 1 } else { low };
@@ -219,5 +219,4 @@ mod tests {
         }
         assert!(wp <= CACHED_VS_PER_CALL_KM && wv <= CACHED_VS_PER_CALL_KM_S, "{wp} km, {wv} km/s");
     }
-
 }

@@ -122,10 +122,7 @@ impl BodyGrid {
         let u2 = u * u;
         // d/du of the basis (d00 = −d01); d/dt = (d/du) / h.
         let (d10, d01, d11) = (3.0 * u2 - 4.0 * u + 1.0, -6.0 * u2 + 6.0 * u, 3.0 * u2 - 2.0 * u);
-        Some(StateKm {
-            position_km: crate::interp::hermite_position_km(a, b, u, h_s),
-            velocity_km_s: std::array::from_fn(|c| d01 * (b[c] - a[c]) / h_s + d10 * a[3 + c] + d11 * b[3 + c]),
-        })
+        Some(StateKm { position_km: crate::interp::hermite_position_km(a, b, u, h_s), velocity_km_s: std::array::from_fn(|c| d01 * (b[c] - a[c]) / h_s + d10 * a[3 + c] + d11 * b[3 + c]) })
     }
 }
 

@@ -71,22 +71,15 @@ fn grid_span_s(days_mjd_utc: impl IntoIterator<Item = i64>) -> Option<(i64, i64)
 
 /// Calendar TDB text of an epoch (for messages).
 fn tdb_text(t: &TdbSeconds) -> String {
-    let fs = t.whole_s as i128 * crate::time::femto::FS_PER_S
-        + crate::time::femto::seconds_to_fs(t.frac_s).unwrap_or(0)
-        + crate::time::relativistic::J2000_FS;
+    let fs = t.whole_s as i128 * crate::time::femto::FS_PER_S + crate::time::femto::seconds_to_fs(t.frac_s).unwrap_or(0) + crate::time::relativistic::J2000_FS;
     crate::time::Epoch::from_uniform_fs(TimeScale::Tdb, fs).map(|e| e.to_string()).unwrap_or_else(|_| format!("{} s TDB past J2000", t.approx_s()))
 }
 
 /// Calendar UTC text of a TDB epoch, geocentric (for messages).
 fn utc_text(t: &TdbSeconds) -> String {
     let ts = TimeScales::new(crate::time::LeapSecondTable::builtin().with_policy(crate::time::ExpiryPolicy::ExtendLastOffset));
-    let fs = t.whole_s as i128 * crate::time::femto::FS_PER_S
-        + crate::time::femto::seconds_to_fs(t.frac_s).unwrap_or(0)
-        + crate::time::relativistic::J2000_FS;
-    crate::time::Epoch::from_uniform_fs(TimeScale::Tdb, fs)
-        .and_then(|e| ts.convert(e, TimeScale::Utc, 0.0))
-        .map(|e| e.to_string())
-        .unwrap_or_else(|_| "UTC not representable".to_string())
+    let fs = t.whole_s as i128 * crate::time::femto::FS_PER_S + crate::time::femto::seconds_to_fs(t.frac_s).unwrap_or(0) + crate::time::relativistic::J2000_FS;
+    crate::time::Epoch::from_uniform_fs(TimeScale::Tdb, fs).and_then(|e| ts.convert(e, TimeScale::Utc, 0.0)).map(|e| e.to_string()).unwrap_or_else(|_| "UTC not representable".to_string())
 }
 
 fn span_text(a: f64, b: f64) -> String {
@@ -208,14 +201,7 @@ impl Ephemeris {
             }
         }
         let center = self.kernels.iter().flat_map(|k| &k.segments).find(|s| s.target == target).map(|s| s.center).unwrap_or(0);
-        Err(EphemerisError::OutOfCoverage {
-            body: body_name(target),
-            id: target,
-            center,
-            tdb: tdb_text(t),
-            utc: utc_text(t),
-            coverage: coverage.trim_end().to_string(),
-        })
+        Err(EphemerisError::OutOfCoverage { body: body_name(target), id: target, center, tdb: tdb_text(t), utc: utc_text(t), coverage: coverage.trim_end().to_string() })
     }
 
     fn loaded_text(&self) -> String {

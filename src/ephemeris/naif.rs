@@ -30,13 +30,7 @@ const BODIES: &[(i32, &str)] = &[
 ];
 
 /// Other names accepted for the same codes (NAIF `naif_ids.req` synonyms).
-const ALIASES: &[(&str, i32)] = &[
-    ("SSB", 0),
-    ("SOLAR_SYSTEM_BARYCENTER", 0),
-    ("EMB", 3),
-    ("EARTH-MOON BARYCENTER", 3),
-    ("EARTH MOON BARYCENTER", 3),
-];
+const ALIASES: &[(&str, i32)] = &[("SSB", 0), ("SOLAR_SYSTEM_BARYCENTER", 0), ("EMB", 3), ("EARTH-MOON BARYCENTER", 3), ("EARTH MOON BARYCENTER", 3)];
 
 fn normalise(name: &str) -> String {
     name.trim().to_ascii_uppercase().replace('_', " ")

@@ -106,7 +106,18 @@ pub fn parse_oem(text: &str, path: &Path, target: i32, ts: &TimeScales) -> Resul
             let (k, v) = l.split_once('=').ok_or_else(|| err(j + 1, format!("expected KEY = VALUE, found '{l}'")))?;
             let (k, v) = (k.trim(), v.trim().to_string());
             match k {
-                "OBJECT_NAME" | "OBJECT_ID" | "CENTER_NAME" | "REF_FRAME" | "REF_FRAME_EPOCH" | "TIME_SYSTEM" | "START_TIME" | "STOP_TIME" | "USEABLE_START_TIME" | "USEABLE_STOP_TIME" | "INTERPOLATION" | "INTERPOLATION_DEGREE" => {}
+                "OBJECT_NAME"
+                | "OBJECT_ID"
+                | "CENTER_NAME"
+                | "REF_FRAME"
+                | "REF_FRAME_EPOCH"
+                | "TIME_SYSTEM"
+                | "START_TIME"
+                | "STOP_TIME"
+                | "USEABLE_START_TIME"
+                | "USEABLE_STOP_TIME"
+                | "INTERPOLATION"
+                | "INTERPOLATION_DEGREE" => {}
                 other => return Err(err(j + 1, format!("unknown metadata keyword '{other}'"))),
             }
             match k {
@@ -186,10 +197,10 @@ pub fn parse_oem(text: &str, path: &Path, target: i32, ts: &TimeScales) -> Resul
                     return Err(err(j + 1, format!("'{}' is not finite", f[k + 1])));
                 }
             }
-            if let Some(prev) = epochs_s.last() {
-                if t <= *prev {
-                    return Err(err(j + 1, "epochs must increase".into()));
-                }
+            if let Some(prev) = epochs_s.last()
+                && t <= *prev
+            {
+                return Err(err(j + 1, "epochs must increase".into()));
             }
             epochs_s.push(t);
             states.push(st);

@@ -30,10 +30,7 @@ pub struct StateKm {
 impl std::ops::Add for StateKm {
     type Output = StateKm;
     fn add(self, o: StateKm) -> StateKm {
-        StateKm {
-            position_km: std::array::from_fn(|i| self.position_km[i] + o.position_km[i]),
-            velocity_km_s: std::array::from_fn(|i| self.velocity_km_s[i] + o.velocity_km_s[i]),
-        }
+        StateKm { position_km: std::array::from_fn(|i| self.position_km[i] + o.position_km[i]), velocity_km_s: std::array::from_fn(|i| self.velocity_km_s[i] + o.velocity_km_s[i]) }
     }
 }
 

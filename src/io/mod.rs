@@ -61,12 +61,9 @@ pub fn read_parquet_metadata(path: &Path) -> Result<Vec<(String, String)>, IoErr
     let f = File::open(path).map_err(|source| IoError::Open { path: path.into(), source })?;
     let res = guarded(|| {
         let mut reader = ParquetReader::new(f);
-        reader.get_metadata().map(|md| -> Vec<(String, String)> {
-            md.key_value_metadata()
-                .as_ref()
-                .map(|kv| kv.iter().map(|k| (k.key.clone(), k.value.clone().unwrap_or_default())).collect())
-                .unwrap_or_default()
-        })
+        reader
+            .get_metadata()
+            .map(|md| -> Vec<(String, String)> { md.key_value_metadata().as_ref().map(|kv| kv.iter().map(|k| (k.key.clone(), k.value.clone().unwrap_or_default())).collect()).unwrap_or_default() })
     });
     match res {
         Some(Ok(v)) => Ok(v),
@@ -101,15 +98,8 @@ pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, Strin
     // Buffered: the writer emits the footer a few bytes at a time (≈ 2300
     // write calls per file unbuffered).
     let mut f = std::io::BufWriter::with_capacity(1 << 20, File::create(&tmp).map_err(|e| werr(e.to_string()))?);
-    let kv: Vec<polars_parquet::write::KeyValue> = metadata
-        .iter()
-        .map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) })
-        .collect();
-    let mut w = ParquetWriter::new(&mut f)
-        .with_compression(output_compression())
-        .with_key_value_metadata(Some(KeyValueMetadata::Static(kv)))
-        .batched(df.schema())
-        .map_err(|e| werr(e.to_string()))?;
+    let kv: Vec<polars_parquet::write::KeyValue> = metadata.iter().map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) }).collect();
+    let mut w = ParquetWriter::new(&mut f).with_compression(output_compression()).with_key_value_metadata(Some(KeyValueMetadata::Static(kv))).batched(df.schema()).map_err(|e| werr(e.to_string()))?;
     write_row_groups_parallel(&mut w, df).map_err(|e| werr(e.to_string()))?;
     w.finish().map_err(|e| werr(e.to_string()))?;
     drop(w);
@@ -132,12 +122,7 @@ const ROW_GROUP_ROWS: usize = 512 * 512;
 pub fn write_row_groups_parallel<W: std::io::Write>(w: &mut polars::io::parquet::write::BatchedWriter<W>, df: &mut DataFrame) -> PolarsResult<()> {
     use polars_parquet::write::{CompressedPage, CompressionOptions, Compressor, StatisticsOptions, Version, WriteOptions, array_to_columns};
     use rayon::prelude::*;
-    let options = WriteOptions {
-        statistics: StatisticsOptions::default(),
-        version: Version::V1,
-        compression: CompressionOptions::from(output_compression()),
-        data_page_size: None,
-    };
+    let options = WriteOptions { statistics: StatisticsOptions::default(), version: Version::V1, compression: CompressionOptions::from(output_compression()), data_page_size: None };
     let fields = w.parquet_schema().fields().to_vec();
     let arrow_schema = df.schema().to_arrow(CompatLevel::newest());
     let encodings = polars::io::parquet::write::get_encodings(&arrow_schema);
@@ -175,20 +160,11 @@ pub struct Columns<'a, 'p> {
 
 impl<'a> Columns<'a, '_> {
     fn column(&self, name: &str, expected: &str) -> Result<&'a Column, IoError> {
-        self.df.column(name).map_err(|_| IoError::MissingColumn {
-            path: self.path.into(),
-            column: name.into(),
-            expected: expected.into(),
-        })
+        self.df.column(name).map_err(|_| IoError::MissingColumn { path: self.path.into(), column: name.into(), expected: expected.into() })
     }
 
     fn type_err(&self, name: &str, c: &Column, expected: &str) -> IoError {
-        IoError::ColumnType {
-            path: self.path.into(),
-            column: name.into(),
-            found: c.dtype().to_string(),
-            expected: expected.into(),
-        }
+        IoError::ColumnType { path: self.path.into(), column: name.into(), found: c.dtype().to_string(), expected: expected.into() }
     }
 
     /// A required Int64 column (Int32 is widened).

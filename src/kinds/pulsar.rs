@@ -195,27 +195,8 @@ impl Pulsar {
         if !ppn_gamma.is_finite() {
             return Err(invalid("[corrections] ppn_gamma must be finite".into()));
         }
-        let ctx = PulsarContext {
-            ephemeris,
-            earth,
-            stations,
-            clocks,
-            input_is_site_clock,
-            allow_clock_extrapolation: cfg.clocks.allow_extrapolation,
-            source,
-            spin,
-            dm_pc_cm3,
-            shapiro,
-            ppn_gamma,
-        };
-        Ok(Pulsar {
-            ctx,
-            input_path: file.resolve(&cfg.input.path),
-            output_path: file.resolve(&cfg.output.path),
-            subtract_weighted_mean: cfg.residuals.subtract_weighted_mean,
-            inputs,
-            constants,
-        })
+        let ctx = PulsarContext { ephemeris, earth, stations, clocks, input_is_site_clock, allow_clock_extrapolation: cfg.clocks.allow_extrapolation, source, spin, dm_pc_cm3, shapiro, ppn_gamma };
+        Ok(Pulsar { ctx, input_path: file.resolve(&cfg.input.path), output_path: file.resolve(&cfg.output.path), subtract_weighted_mean: cfg.residuals.subtract_weighted_mean, inputs, constants })
     }
 
     /// Computes every row of a batch: results in input order (Err = reject reason).
@@ -385,7 +366,6 @@ impl Pulsar {
             clock_extrapolated: clock_count,
         })
     }
-
 }
 
 /// The input columns of a pulsar batch.
@@ -495,7 +475,14 @@ impl Kind for Pulsar {
                             let (a, b) = t.span_mjd();
                             if (*lo as f64) < a || (*hi as f64 + 1.0) > b {
                                 let level = if self.ctx.allow_clock_extrapolation { Level::Note } else { Level::Problem };
-                                p.add(level, format!("clock table {} covers MJD {a} … {b}; site {site} observes MJD {lo} … {hi}{}", t.path.display(), if self.ctx.allow_clock_extrapolation { " (end values will be held and rows flagged)" } else { "" }));
+                                p.add(
+                                    level,
+                                    format!(
+                                        "clock table {} covers MJD {a} … {b}; site {site} observes MJD {lo} … {hi}{}",
+                                        t.path.display(),
+                                        if self.ctx.allow_clock_extrapolation { " (end values will be held and rows flagged)" } else { "" }
+                                    ),
+                                );
                             }
                         }
                     }
@@ -546,9 +533,9 @@ impl Kind for Pulsar {
         Ok(Processed { output: f.out, rejects: f.rejects, tally })
     }
 
-        /// Arrival times exact under the pipeline's model (to ≤ 1 ps before
-        /// noise) for the planned sites, epochs and frequencies (plan CSV header
-        /// `site,mjd,freq_mhz,sigma_us`).
+    /// Arrival times exact under the pipeline's model (to ≤ 1 ps before
+    /// noise) for the planned sites, epochs and frequencies (plan CSV header
+    /// `site,mjd,freq_mhz,sigma_us`).
     fn synthesise(&mut self, plan: &Path, opts: &SynthOptions) -> Result<DataFrame, PipelineError> {
         use rayon::prelude::*;
         let rows = read_plan(plan)?;
@@ -613,4 +600,3 @@ pub fn read_plan(path: &Path) -> Result<Vec<PlanRow>, PipelineError> {
     }
     Ok(rows)
 }
-

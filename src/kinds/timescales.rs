@@ -167,7 +167,10 @@ impl Kind for Timescales {
         let Some(s) = facts.span() else { return };
         let leaps = self.ts.leap_seconds();
         if s.hi >= leaps.window_mjd() && leaps.policy() != ExpiryPolicy::ExtendLastOffset {
-            report.add(Level::Problem, format!("leap-second table ({}) cannot answer UTC on or after MJD {} (expires MJD {}); epochs reach MJD {}", leaps.source_name(), leaps.window_mjd(), leaps.expires_mjd(), s.hi));
+            report.add(
+                Level::Problem,
+                format!("leap-second table ({}) cannot answer UTC on or after MJD {} (expires MJD {}); epochs reach MJD {}", leaps.source_name(), leaps.window_mjd(), leaps.expires_mjd(), s.hi),
+            );
         } else {
             report.add(Level::Ok, format!("leap-second table valid until MJD {} (expires MJD {})", leaps.window_mjd(), leaps.expires_mjd()));
         }

@@ -94,6 +94,9 @@ pub struct Tracking {
     pub constants: Constants,
 }
 
+/// An epoch as (MJD day, fraction of the day).
+type DayFrac = (i64, f64);
+
 /// True for Doppler observables (values in Hz), by their input name.
 fn is_doppler(kind: &str) -> bool {
     kind.starts_with("doppler")
@@ -141,25 +144,8 @@ impl Tracking {
             }
             _ => None,
         };
-        let ctx = TrackingContext {
-            ephemeris,
-            earth,
-            stations,
-            target,
-            shapiro,
-            ppn_gamma,
-            transponder_delay_s: cfg.target.transponder_delay_s,
-            turnaround,
-            field,
-            troposphere,
-        };
-        Ok(Tracking {
-            ctx,
-            input_path: file.resolve(&cfg.input.path),
-            output_path: file.resolve(&cfg.output.path),
-            inputs,
-            constants,
-        })
+        let ctx = TrackingContext { ephemeris, earth, stations, target, shapiro, ppn_gamma, transponder_delay_s: cfg.target.transponder_delay_s, turnaround, field, troposphere };
+        Ok(Tracking { ctx, input_path: file.resolve(&cfg.input.path), output_path: file.resolve(&cfg.output.path), inputs, constants })
     }
 
     /// Computes every row (Err = reject reason), in input order.
@@ -171,8 +157,8 @@ impl Tracking {
         let mut index = Vec::with_capacity(n);
         for i in 0..n {
             let pre = (|| -> Result<Measurement, Reject> {
-                let kind: Observable = input.kind[i].as_deref().ok_or_else(|| Reject::missing("kind"))?.parse().map_err(|e| Reject::from_error(&e))?;
-                let rx = input.rx_station[i].as_deref().ok_or_else(|| Reject::missing("rx_station"))?;
+                let kind: Observable = input.kind[i].ok_or_else(|| Reject::missing("kind"))?.parse().map_err(|e| Reject::from_error(&e))?;
+                let rx = input.rx_station[i].ok_or_else(|| Reject::missing("rx_station"))?;
                 let day = input.day[i].ok_or_else(|| Reject::missing("rx_mjd_day"))?;
                 let frac = input.frac[i].ok_or_else(|| Reject::missing("rx_mjd_frac"))?;
                 let count_s = input.count_s[i].unwrap_or(f64::NAN);
@@ -191,7 +177,7 @@ impl Tracking {
                         return Err(invalid(format!("value invalid: light time {v} s must be positive")));
                     }
                 }
-                Ok(Measurement { kind, rx_station: rx, tx_station: input.tx_station[i].as_deref(), rx_mjd_day: day, rx_mjd_frac: frac, count_s, uplink_hz })
+                Ok(Measurement { kind, rx_station: rx, tx_station: input.tx_station[i], rx_mjd_day: day, rx_mjd_frac: frac, count_s, uplink_hz })
             })();
             match pre {
                 Ok(m) => {
@@ -212,7 +198,6 @@ impl Tracking {
         }
         out
     }
-
 }
 
 /// The input columns of a tracking batch.
@@ -273,10 +258,13 @@ impl Kind for Tracking {
         let mut base = shared_provenance(file, &self.inputs, &self.constants, &self.ctx.shapiro, self.ctx.ppn_gamma)?;
         base.set("target.naif_id", &self.ctx.target.to_string());
         base.set("target.transponder_delay_s", &format!("{:e}", self.ctx.transponder_delay_s));
-        base.set("corrections.troposphere", match &self.ctx.troposphere {
-            Some(_) => "Saastamoinen 1972 zenith + Black & Eisner 1984 mapping",
-            None => "off",
-        });
+        base.set(
+            "corrections.troposphere",
+            match &self.ctx.troposphere {
+                Some(_) => "Saastamoinen 1972 zenith + Black & Eisner 1984 mapping",
+                None => "off",
+            },
+        );
         Ok(base)
     }
 
@@ -315,7 +303,7 @@ impl Kind for Tracking {
         let parts = |e: &crate::time::Epoch| ts.mjd_parts(e).unwrap_or((e.mjd_day(), f64::NAN));
         // Exact day fractions (a 128-bit correction each): in parallel, order kept.
         use rayon::prelude::*;
-        let (bounce, tx): (Vec<(i64, f64)>, Vec<Option<(i64, f64)>>) = good.par_iter().map(|(_, g)| (parts(&g.bounce_tdb), g.tx_utc.as_ref().map(parts))).unzip();
+        let (bounce, tx): (Vec<DayFrac>, Vec<Option<DayFrac>>) = good.par_iter().map(|(_, g)| (parts(&g.bounce_tdb), g.tx_utc.as_ref().map(parts))).unzip();
         let fcol = |n: &str, v: Vec<f64>| Column::new(n.into(), v);
         let ocol = |n: &str, v: Vec<Option<f64>>| Column::new(n.into(), v);
         // A value in the column of its unit: light time (s) or Doppler (Hz).
@@ -393,7 +381,8 @@ impl Kind for Tracking {
         }
         let n = kind.len();
         let ids: Vec<Option<String>> = (0..n).map(|i| Some(format!("{}-{i:05}", kind[i].unwrap_or("")))).collect();
-        let input = TrackingInput { obs_id: ids.iter().map(|s| s.as_deref()).collect(), kind, rx_station: rx, tx_station: tx, day, frac, count_s: count, uplink_hz: up, value: vec![None; n], sigma: sig };
+        let input =
+            TrackingInput { obs_id: ids.iter().map(|s| s.as_deref()).collect(), kind, rx_station: rx, tx_station: tx, day, frac, count_s: count, uplink_hz: up, value: vec![None; n], sigma: sig };
         let res = self.compute(&input, false, &Exec::default());
         let mut values = Vec::with_capacity(n);
         for (i, r) in res.iter().enumerate() {
@@ -421,5 +410,12 @@ impl Kind for Tracking {
 /// Doppler in Hz (shown in mHz).
 fn residual_set(kind: &str) -> ResidualSet {
     let (natural, unit) = if is_doppler(kind) { ("hz", Unit { name: "mHz", per_natural: 1e3 }) } else { ("s", Unit { name: "ns", per_natural: 1e9 }) };
-    ResidualSet::new(kind, &format!("{kind} residuals"), "station", natural, unit, PlotSpec { name: format!("residuals_{kind}"), title: format!("{kind} residuals"), x_label: "reception time (MJD, UTC)".into(), unit })
+    ResidualSet::new(
+        kind,
+        &format!("{kind} residuals"),
+        "station",
+        natural,
+        unit,
+        PlotSpec { name: format!("residuals_{kind}"), title: format!("{kind} residuals"), x_label: "reception time (MJD, UTC)".into(), unit },
+    )
 }

@@ -12,9 +12,9 @@ use std::path::Path;
 
 use polars::prelude::DataFrame;
 
+use super::PipelineError;
 use super::kind::Kind;
 use super::table::{IdChecker, ids, parquet_rows, read_parquet_slice};
-use super::PipelineError;
 use crate::earth::{EarthModel, StationCatalog};
 use crate::ephemeris::{Ephemeris, TdbSeconds, body_name};
 
@@ -238,7 +238,10 @@ pub fn check_earth(p: &mut Preflight, earth: &EarthModel, s: &Span, days: &BTree
     }
     let leaps = earth.time.leap_seconds();
     if s.hi >= leaps.window_mjd() {
-        p.add(Level::Problem, format!("leap-second table ({}) cannot answer UTC on or after MJD {} (expires MJD {}); observations reach MJD {}", leaps.source_name(), leaps.window_mjd(), leaps.expires_mjd(), s.hi));
+        p.add(
+            Level::Problem,
+            format!("leap-second table ({}) cannot answer UTC on or after MJD {} (expires MJD {}); observations reach MJD {}", leaps.source_name(), leaps.window_mjd(), leaps.expires_mjd(), s.hi),
+        );
     } else {
         p.add(Level::Ok, format!("leap-second table valid until MJD {} (expires MJD {})", leaps.window_mjd(), leaps.expires_mjd()));
     }
@@ -254,4 +257,3 @@ pub fn unknown_codes(p: &mut Preflight, cat: &StationCatalog, what: &str, codes:
         p.add(Level::Problem, format!("unknown {what}: {}", list.join(", ")));
     }
 }
-

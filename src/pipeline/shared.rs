@@ -103,7 +103,13 @@ pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg
 
 /// Provenance shared by every partition of a run with geometry: the
 /// pipeline, every shared input file, and the constants used.
-pub fn shared_provenance(file: &PipelineFile, inputs: &[(String, PathBuf, String)], constants: &Constants, shapiro: &[crate::delays::ShapiroBody], ppn_gamma: f64) -> Result<Provenance, PipelineError> {
+pub fn shared_provenance(
+    file: &PipelineFile,
+    inputs: &[(String, PathBuf, String)],
+    constants: &Constants,
+    shapiro: &[crate::delays::ShapiroBody],
+    ppn_gamma: f64,
+) -> Result<Provenance, PipelineError> {
     let mut base = Provenance::start(file);
     for (role, p, cov) in inputs {
         base.add_input(role, p, cov)?;
@@ -128,4 +134,3 @@ pub fn load_time(file: &PipelineFile, leap: Option<&Path>) -> Result<(TimeScales
         None => Ok((TimeScales::builtin(), None)),
     }
 }
-

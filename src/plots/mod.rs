@@ -72,13 +72,7 @@ where
     area.fill(&WHITE).map_err(PlotError::draw)?;
     let (x0, x1) = finite_range(groups.iter().flat_map(|g| g.t.iter().copied()));
     let (y0, y1) = finite_range(groups.iter().flat_map(|g| g.y.iter().zip(&g.sigma).flat_map(|(y, s)| [y - s, y + s])));
-    let mut chart = ChartBuilder::on(area)
-        .caption(title, ("sans-serif", 22))
-        .margin(12)
-        .x_label_area_size(45)
-        .y_label_area_size(80)
-        .build_cartesian_2d(x0..x1, y0..y1)
-        .map_err(PlotError::draw)?;
+    let mut chart = ChartBuilder::on(area).caption(title, ("sans-serif", 22)).margin(12).x_label_area_size(45).y_label_area_size(80).build_cartesian_2d(x0..x1, y0..y1).map_err(PlotError::draw)?;
     chart
         .configure_mesh()
         .x_desc(x_label)
@@ -91,23 +85,14 @@ where
         .map_err(PlotError::draw)?;
     for (k, g) in groups.iter().enumerate() {
         let c = COLORS[k % COLORS.len()];
-        chart
-            .draw_series(g.t.iter().zip(&g.y).zip(&g.sigma).map(|((t, y), s)| ErrorBar::new_vertical(*t, y - s, *y, y + s, c.mix(0.5).stroke_width(1), 4)))
-            .map_err(PlotError::draw)?;
+        chart.draw_series(g.t.iter().zip(&g.y).zip(&g.sigma).map(|((t, y), s)| ErrorBar::new_vertical(*t, y - s, *y, y + s, c.mix(0.5).stroke_width(1), 4))).map_err(PlotError::draw)?;
         chart
             .draw_series(g.t.iter().zip(&g.y).map(|(t, y)| Circle::new((*t, *y), 2, c.filled())))
             .map_err(PlotError::draw)?
             .label(format!("{} ({} rows)", g.label, g.t.len()))
             .legend(move |(x, y)| Circle::new((x + 8, y), 4, c.filled()));
     }
-    chart
-        .configure_series_labels()
-        .background_style(WHITE.mix(0.85))
-        .border_style(BLACK)
-        .label_font(("sans-serif", 14))
-        .position(SeriesLabelPosition::UpperRight)
-        .draw()
-        .map_err(PlotError::draw)?;
+    chart.configure_series_labels().background_style(WHITE.mix(0.85)).border_style(BLACK).label_font(("sans-serif", 14)).position(SeriesLabelPosition::UpperRight).draw().map_err(PlotError::draw)?;
     area.present().map_err(PlotError::draw)
 }
 
@@ -129,13 +114,8 @@ where
     let outside = z.iter().filter(|v| v.abs() >= 5.0).count();
     let n = z.len().max(1) as f64;
     let peak = counts.iter().copied().max().unwrap_or(1).max((n * width / (2.0 * std::f64::consts::PI).sqrt()).ceil() as usize) as f64 * 1.15;
-    let mut chart = ChartBuilder::on(area)
-        .caption(title, ("sans-serif", 22))
-        .margin(12)
-        .x_label_area_size(45)
-        .y_label_area_size(60)
-        .build_cartesian_2d(-5.0f64..5.0, 0.0..peak)
-        .map_err(PlotError::draw)?;
+    let mut chart =
+        ChartBuilder::on(area).caption(title, ("sans-serif", 22)).margin(12).x_label_area_size(45).y_label_area_size(60).build_cartesian_2d(-5.0f64..5.0, 0.0..peak).map_err(PlotError::draw)?;
     chart
         .configure_mesh()
         .x_desc("normalised residual (residual / σ)")
@@ -156,11 +136,7 @@ where
         let x = -5.0 + i as f64 * 0.05;
         (x, n * width * (-0.5 * x * x).exp() / (2.0 * std::f64::consts::PI).sqrt())
     });
-    chart
-        .draw_series(LineSeries::new(gauss, RED.stroke_width(2)))
-        .map_err(PlotError::draw)?
-        .label("unit normal")
-        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 12, y)], RED.stroke_width(2)));
+    chart.draw_series(LineSeries::new(gauss, RED.stroke_width(2))).map_err(PlotError::draw)?.label("unit normal").legend(|(x, y)| PathElement::new(vec![(x, y), (x + 12, y)], RED.stroke_width(2)));
     chart.configure_series_labels().background_style(WHITE.mix(0.85)).border_style(BLACK).label_font(("sans-serif", 14)).draw().map_err(PlotError::draw)?;
     area.present().map_err(PlotError::draw)
 }

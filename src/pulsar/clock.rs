@@ -68,10 +68,10 @@ impl ClockTable {
             if o.abs() > 1.0 {
                 return Err(err(line, format!("offset {o} s exceeds 1 s: not a clock correction")));
             }
-            if let Some(&prev) = mjd.last() {
-                if m <= prev {
-                    return Err(err(line, format!("MJD {m} is not after {prev}")));
-                }
+            if let Some(&prev) = mjd.last()
+                && m <= prev
+            {
+                return Err(err(line, format!("MJD {m} is not after {prev}")));
             }
             mjd.push(m);
             offset_s.push(o);

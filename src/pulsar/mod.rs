@@ -17,8 +17,8 @@ use nalgebra::Vector3;
 use crate::delays::{self, Source};
 use crate::earth::{EarthError, EarthModel, StationCatalog, StationError};
 use crate::ephemeris::{Ephemeris, EphemerisError, TdbSeconds};
-use crate::reject::{Coded, RejectCode};
 use crate::parallel::Exec;
+use crate::reject::{Coded, RejectCode};
 use crate::time::femto::{FS_PER_S, div_floor, ratio_to_f64, seconds_to_fs};
 use crate::time::{Epoch, TimeError, TimeScale};
 use clock::{ClockError, ClockTable, chain_at};
@@ -285,7 +285,6 @@ impl PulsarContext {
     }
 }
 
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -316,5 +315,4 @@ mod tests {
         assert_eq!(n, 9_999_999_990);
         assert!(f.abs() < 1e-12);
     }
-
 }

@@ -7,9 +7,7 @@ use super::calendar::ymd_from_mjd;
 use super::error::TimeError;
 use super::femto::{FS_PER_DAY, FS_PER_S, div_floor, fraction_digits, mul_f64_fs, ratio_to_f64, seconds_to_fs};
 use super::leap::LeapSecondTable;
-use super::relativistic::{
-    J2000_FS, tcb_minus_tdb_fs, tcg_minus_tt_fs, tdb_minus_tcb_fs, tdb_minus_tt_geocentric_s, tt_minus_tcg_fs,
-};
+use super::relativistic::{J2000_FS, tcb_minus_tdb_fs, tcg_minus_tt_fs, tdb_minus_tcb_fs, tdb_minus_tt_geocentric_s, tt_minus_tcg_fs};
 
 /// A time scale.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -34,16 +32,7 @@ pub enum TimeScale {
 
 impl TimeScale {
     /// All scales, in display order.
-    pub const ALL: [TimeScale; 8] = [
-        TimeScale::Utc,
-        TimeScale::Tai,
-        TimeScale::Tt,
-        TimeScale::Gps,
-        TimeScale::Tcg,
-        TimeScale::Tcb,
-        TimeScale::Tdb,
-        TimeScale::Ut1,
-    ];
+    pub const ALL: [TimeScale; 8] = [TimeScale::Utc, TimeScale::Tai, TimeScale::Tt, TimeScale::Gps, TimeScale::Tcg, TimeScale::Tcb, TimeScale::Tdb, TimeScale::Ut1];
 
     /// Lower-case name (`"tdb"`).
     pub fn name(self) -> &'static str {
@@ -70,10 +59,7 @@ impl FromStr for TimeScale {
     type Err = TimeError;
     fn from_str(s: &str) -> Result<Self, Self::Err> {
         let lower = s.trim().to_ascii_lowercase();
-        TimeScale::ALL
-            .into_iter()
-            .find(|t| t.name() == lower)
-            .ok_or_else(|| TimeError::UnknownScale { name: s.to_string() })
+        TimeScale::ALL.into_iter().find(|t| t.name() == lower).ok_or_else(|| TimeError::UnknownScale { name: s.to_string() })
     }
 }
 
@@ -109,11 +95,7 @@ impl Epoch {
     /// MJD 0.0 of that scale.
     pub fn from_uniform_fs(scale: TimeScale, fs_since_mjd0: i128) -> Result<Self, TimeError> {
         if scale == TimeScale::Utc {
-            return Err(TimeError::Unsupported {
-                from: "femtosecond count".into(),
-                to: "UTC".into(),
-                needs: "the leap-second table (use TimeScales::epoch_from_mjd)".into(),
-            });
+            return Err(TimeError::Unsupported { from: "femtosecond count".into(), to: "UTC".into(), needs: "the leap-second table (use TimeScales::epoch_from_mjd)".into() });
         }
         let (day, fs) = div_floor(fs_since_mjd0, FS_PER_DAY);
         let mjd_day = i64::try_from(day).map_err(|_| TimeError::OutOfRange { what: format!("{fs_since_mjd0} fs") })?;
@@ -169,11 +151,7 @@ impl fmt::Display for Epoch {
         let whole_s = self.fs_of_day / FS_PER_S;
         let frac_fs = self.fs_of_day % FS_PER_S;
         // 23:59:60 on a leap day: seconds of day ≥ 86 400.
-        let (hh, mm, ss) = if whole_s >= 86_400 {
-            (23, 59, 60 + (whole_s - 86_400))
-        } else {
-            (whole_s / 3600, (whole_s % 3600) / 60, whole_s % 60)
-        };
+        let (hh, mm, ss) = if whole_s >= 86_400 { (23, 59, 60 + (whole_s - 86_400)) } else { (whole_s / 3600, (whole_s % 3600) / 60, whole_s % 60) };
         write!(f, "{y:04}-{m:02}-{d:02}T{hh:02}:{mm:02}:{ss:02}.{frac_fs:015} {}", self.scale)
     }
 }
@@ -245,11 +223,7 @@ impl TimeScales {
     }
 
     fn ut1_minus_tai_fs_at_tai(&self, tai_fs: i128) -> Result<i128, TimeError> {
-        let src = self.ut1.as_ref().ok_or_else(|| TimeError::Unsupported {
-            from: "TAI".into(),
-            to: "UT1".into(),
-            needs: "Earth-orientation data (UT1 − UTC): give an EOP file".into(),
-        })?;
+        let src = self.ut1.as_ref().ok_or_else(|| TimeError::Unsupported { from: "TAI".into(), to: "UT1".into(), needs: "Earth-orientation data (UT1 − UTC): give an EOP file".into() })?;
         let (day, fs) = self.leaps.utc_day_of_tai(tai_fs)?;
         let utc = Epoch { scale: TimeScale::Utc, mjd_day: day, fs_of_day: fs };
         let d = src.ut1_minus_tai_s(&self.leaps, &utc)?;
@@ -297,9 +271,7 @@ impl TimeScales {
     pub fn epoch_from_day_fs(&self, scale: TimeScale, mjd_day: i64, fs_of_day: i128) -> Result<Epoch, TimeError> {
         let len = self.day_length_fs(scale, mjd_day)?;
         if !(0..len).contains(&fs_of_day) {
-            return Err(TimeError::OutOfRange {
-                what: format!("{} s into MJD {mjd_day} {scale}, a day of {} s", ratio_to_f64(fs_of_day, FS_PER_S), len / FS_PER_S),
-            });
+            return Err(TimeError::OutOfRange { what: format!("{} s into MJD {mjd_day} {scale}, a day of {} s", ratio_to_f64(fs_of_day, FS_PER_S), len / FS_PER_S) });
         }
         Ok(Epoch { scale, mjd_day, fs_of_day })
     }
@@ -329,9 +301,7 @@ impl TimeScales {
     pub fn tt_fs(&self, e: &Epoch, observer_s: f64) -> Result<i128, TimeError> {
         let label = e.label_fs();
         Ok(match e.scale {
-            TimeScale::Utc => {
-                self.leaps.tai_fs_at_utc_midnight(e.mjd_day)? + e.fs_of_day + TT_MINUS_TAI_FS
-            }
+            TimeScale::Utc => self.leaps.tai_fs_at_utc_midnight(e.mjd_day)? + e.fs_of_day + TT_MINUS_TAI_FS,
             TimeScale::Tai => label + TT_MINUS_TAI_FS,
             TimeScale::Tt => label,
             TimeScale::Gps => label + TAI_MINUS_GPS_FS + TT_MINUS_TAI_FS,

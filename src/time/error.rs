@@ -18,14 +18,7 @@ pub enum TimeError {
          ({window_date}) that the leap-second table '{source_name}' (expires {expires}) cannot \
          answer; load a newer IERS Leap_Second.dat, or extend the last offset explicitly"
     )]
-    LeapTableExpired {
-        mjd_day: i64,
-        date: String,
-        window_mjd: i64,
-        window_date: String,
-        source_name: String,
-        expires: String,
-    },
+    LeapTableExpired { mjd_day: i64, date: String, window_mjd: i64, window_date: String, source_name: String, expires: String },
 
     /// A fraction of a day outside [0, 1) or not finite.
     #[error("{what} = {value:?} is not a fraction of a day in [0, 1)")]

@@ -211,9 +211,7 @@ fn best_of_three(num_fs: i128, den_fs: i128, guess: f64) -> f64 {
     let mut best_err = u128::MAX;
     for (cand, (m, e)) in cands.iter().zip(parts) {
         // cand·den − num, in units of 2^e_min: m·2^(e−e_min)·den − num·2^(−e_min).
-        let lhs = (m as i128)
-            .checked_mul(1i128 << (e - e_min))
-            .and_then(|v| v.checked_mul(den_fs));
+        let lhs = (m as i128).checked_mul(1i128 << (e - e_min)).and_then(|v| v.checked_mul(den_fs));
         let Some(lhs) = lhs else { continue };
         let err = (lhs - rhs).unsigned_abs();
         if err < best_err {
@@ -293,10 +291,10 @@ pub fn decimal_fraction_to_fs(digits: &str, unit_fs: i128) -> Option<i128> {
     let mut den: i128 = 10i128.pow(keep as u32);
     // Round on the first dropped digit (ties away from zero: the dropped
     // digits are beyond 1e-18 of the unit, far below one femtosecond).
-    if let Some(first) = tail.bytes().next() {
-        if first >= b'5' {
-            num += 1;
-        }
+    if let Some(first) = tail.bytes().next()
+        && first >= b'5'
+    {
+        num += 1;
     }
     if den == 0 {
         den = 1;
@@ -354,7 +352,6 @@ mod tests {
             assert_eq!(div_floor(a, 3), (a.div_euclid(3), a.rem_euclid(3)));
         }
     }
-
 
     /// The corrected-significand method is correctly rounded (no neighbour
     /// is nearer, compared exactly) and, for denominators exact in f64 (all

@@ -55,10 +55,7 @@ pub struct LeapSecondTable {
 }
 
 fn month_number(name: &str) -> Option<u32> {
-    const NAMES: [&str; 12] = [
-        "january", "february", "march", "april", "may", "june", "july", "august", "september",
-        "october", "november", "december",
-    ];
+    const NAMES: [&str; 12] = ["january", "february", "march", "april", "may", "june", "july", "august", "september", "october", "november", "december"];
     let lower = name.to_ascii_lowercase();
     NAMES.iter().position(|n| *n == lower || (lower.len() >= 3 && n.starts_with(&lower))).map(|i| i as u32 + 1)
 }
@@ -66,10 +63,7 @@ fn month_number(name: &str) -> Option<u32> {
 /// The first 30 June or 31 December on or after `mjd`.
 fn next_leap_window(mjd: i64) -> i64 {
     let (y, _, _) = ymd_from_mjd(mjd);
-    [mjd_from_ymd(y, 6, 30), mjd_from_ymd(y, 12, 31), mjd_from_ymd(y + 1, 6, 30)]
-        .into_iter()
-        .find(|w| *w >= mjd)
-        .expect("one of three windows lies within a year of any date")
+    [mjd_from_ymd(y, 6, 30), mjd_from_ymd(y, 12, 31), mjd_from_ymd(y + 1, 6, 30)].into_iter().find(|w| *w >= mjd).expect("one of three windows lies within a year of any date")
 }
 
 fn iso_date(mjd: i64) -> String {
@@ -80,24 +74,18 @@ fn iso_date(mjd: i64) -> String {
 impl LeapSecondTable {
     /// The table built into lapse.
     pub fn builtin() -> Self {
-        Self::parse(BUILTIN_LEAP_SECOND_FILE, Path::new("<built-in Leap_Second.dat>"))
-            .expect("the built-in leap-second file is validated by the test suite")
+        Self::parse(BUILTIN_LEAP_SECOND_FILE, Path::new("<built-in Leap_Second.dat>")).expect("the built-in leap-second file is validated by the test suite")
     }
 
     /// Reads an IERS `Leap_Second.dat` file.
     pub fn from_file(path: &Path) -> Result<Self, TimeError> {
-        let text = std::fs::read_to_string(path)
-            .map_err(|source| TimeError::Io { path: path.to_path_buf(), source })?;
+        let text = std::fs::read_to_string(path).map_err(|source| TimeError::Io { path: path.to_path_buf(), source })?;
         Self::parse(&text, path)
     }
 
     /// Parses the text of an IERS `Leap_Second.dat` file; `path` names it in errors.
     pub fn parse(text: &str, path: &Path) -> Result<Self, TimeError> {
-        let err = |line: usize, reason: String| TimeError::LeapFile {
-            path: PathBuf::from(path),
-            line,
-            reason,
-        };
+        let err = |line: usize, reason: String| TimeError::LeapFile { path: PathBuf::from(path), line, reason };
         let mut steps: Vec<LeapStep> = Vec::new();
         let mut expires: Option<i64> = None;
         for (i, raw) in text.lines().enumerate() {
@@ -113,14 +101,9 @@ impl LeapSecondTable {
                     if parts.len() != 3 {
                         return Err(err(lineno, format!("cannot read expiry date '{}'", rest.trim())));
                     }
-                    let day: u32 = parts[0]
-                        .parse()
-                        .map_err(|_| err(lineno, format!("bad expiry day '{}'", parts[0])))?;
-                    let month = month_number(parts[1])
-                        .ok_or_else(|| err(lineno, format!("bad expiry month '{}'", parts[1])))?;
-                    let year: i64 = parts[2]
-                        .parse()
-                        .map_err(|_| err(lineno, format!("bad expiry year '{}'", parts[2])))?;
+                    let day: u32 = parts[0].parse().map_err(|_| err(lineno, format!("bad expiry day '{}'", parts[0])))?;
+                    let month = month_number(parts[1]).ok_or_else(|| err(lineno, format!("bad expiry month '{}'", parts[1])))?;
+                    let year: i64 = parts[2].parse().map_err(|_| err(lineno, format!("bad expiry year '{}'", parts[2])))?;
                     if !super::calendar::is_valid_date(year, month, day) {
                         return Err(err(lineno, format!("expiry date '{}' is not a date", rest.trim())));
                     }
@@ -150,10 +133,7 @@ impl LeapSecondTable {
                     return Err(err(lineno, format!("MJD {mjd} is not after the previous entry {}", prev.mjd)));
                 }
                 if (offset - prev.tai_minus_utc_s).abs() != 1 {
-                    return Err(err(lineno, format!(
-                        "TAI-UTC jumps from {} s to {offset} s; a leap step is one second",
-                        prev.tai_minus_utc_s
-                    )));
+                    return Err(err(lineno, format!("TAI-UTC jumps from {} s to {offset} s; a leap step is one second", prev.tai_minus_utc_s)));
                 }
             } else if mjd != FIRST_UTC_MJD {
                 return Err(err(lineno, format!("the first entry must be 1972-01-01 (MJD {FIRST_UTC_MJD}), found MJD {mjd}")));
@@ -163,20 +143,12 @@ impl LeapSecondTable {
         if steps.is_empty() {
             return Err(err(0, "no leap-second entries".into()));
         }
-        let expires_mjd = expires.ok_or_else(|| {
-            err(0, "no 'File expires on' line: the table cannot say how far it is valid".into())
-        })?;
+        let expires_mjd = expires.ok_or_else(|| err(0, "no 'File expires on' line: the table cannot say how far it is valid".into()))?;
         let last = steps.last().map(|s| s.mjd).unwrap_or(FIRST_UTC_MJD);
         if expires_mjd < last {
             return Err(err(0, format!("expiry {} precedes the last entry MJD {last}", iso_date(expires_mjd))));
         }
-        Ok(Self {
-            steps,
-            expires_mjd,
-            window_mjd: next_leap_window(expires_mjd),
-            policy: ExpiryPolicy::Refuse,
-            source_name: path.display().to_string(),
-        })
+        Ok(Self { steps, expires_mjd, window_mjd: next_leap_window(expires_mjd), policy: ExpiryPolicy::Refuse, source_name: path.display().to_string() })
     }
 
     /// The same table with another expiry policy.
@@ -260,9 +232,7 @@ impl LeapSecondTable {
     pub fn utc_day_of_tai(&self, tai_fs: i128) -> Result<(i64, i128), TimeError> {
         let day_fs = 86_400 * FS_PER_S;
         // Offsets are tens of seconds, so the day is found within ±1 of the guess.
-        let idx = self
-            .steps
-            .partition_point(|s| (s.mjd as i128 * 86_400 + s.tai_minus_utc_s as i128) * FS_PER_S <= tai_fs);
+        let idx = self.steps.partition_point(|s| (s.mjd as i128 * 86_400 + s.tai_minus_utc_s as i128) * FS_PER_S <= tai_fs);
         let off = if idx == 0 { self.steps[0].tai_minus_utc_s } else { self.steps[idx - 1].tai_minus_utc_s };
         let guess = crate::time::femto::div_floor(tai_fs - off as i128 * FS_PER_S, day_fs).0;
         let guess = i64::try_from(guess).map_err(|_| TimeError::OutOfRange { what: format!("TAI {tai_fs} fs") })?;

@@ -82,5 +82,4 @@ mod tests {
         let big = TdbSeconds::new(800_000_000, 1e-10);
         assert_eq!(big.minus_f64_s(800_000_000.0), 1e-10);
     }
-
 }

@@ -2,10 +2,10 @@
 //! time, two-, three- and one-way Doppler.
 //!
 //! Conventions (tested):
-//! - Round-trip light time in station time: ρ = (t₃ − t₁)_TDB − (TDB − TT)_rx(t₃)
-//!   + (TDB − TT)_tx(t₁) + station delays (receiver and transmitter, one
-//!   each) + transponder delay. One-way: ρ = (t₃ − t₂)_TDB − (TDB − TT)_rx(t₃)
-//!   + receiver delay.
+//! - Round-trip light time in station time: ρ = (t₃ − t₁)_TDB −
+//!   (TDB − TT)_rx(t₃) + (TDB − TT)_tx(t₁) + station delays (receiver and
+//!   transmitter, one each) + transponder delay. One-way: ρ = (t₃ − t₂)_TDB −
+//!   (TDB − TT)_rx(t₃) + receiver delay.
 //! - Two-/three-way Doppler over a count interval T_c ending at the tagged
 //!   reception: F = M₂ · f_up · (ρ(end) − ρ(start)) / T_c, positive when the
 //!   round trip lengthens (spacecraft receding); the received frequency is

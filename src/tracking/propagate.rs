@@ -39,10 +39,7 @@ impl PointMassField {
             (8, "neptune_barycenter"),
             (9, "pluto_barycenter"),
         ];
-        let bodies = names
-            .iter()
-            .map(|(id, n)| c.gm_km3_s2(n).map(|gm| (*id, gm)).ok_or(MissingGm(n)))
-            .collect::<Result<_, _>>()?;
+        let bodies = names.iter().map(|(id, n)| c.gm_km3_s2(n).map(|gm| (*id, gm)).ok_or(MissingGm(n))).collect::<Result<_, _>>()?;
         Ok(Self { bodies })
     }
 

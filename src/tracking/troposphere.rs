@@ -48,7 +48,8 @@ impl SurfaceMet {
 
     /// Checks the values are physical.
     pub fn validate(&self) -> Result<(), MetError> {
-        for (name, value, lo, hi) in [("pressure_hpa", self.pressure_hpa, 300.0, 1100.0), ("temperature_k", self.temperature_k, 200.0, 330.0), ("relative_humidity", self.relative_humidity, 0.0, 1.0)] {
+        for (name, value, lo, hi) in [("pressure_hpa", self.pressure_hpa, 300.0, 1100.0), ("temperature_k", self.temperature_k, 200.0, 330.0), ("relative_humidity", self.relative_humidity, 0.0, 1.0)]
+        {
             if !(value.is_finite() && (lo..=hi).contains(&value)) {
                 return Err(MetError { name, value, lo, hi });
             }

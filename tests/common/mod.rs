@@ -77,9 +77,12 @@ pub fn fixture_csv(name: &str) -> Vec<Vec<String>> {
 pub fn by_unit(df: &polars::prelude::DataFrame, base: &str) -> Vec<f64> {
     let s = df.column(&format!("{base}_s")).unwrap().f64().unwrap().clone();
     let hz = df.column(&format!("{base}_hz")).unwrap().f64().unwrap().clone();
-    s.iter().zip(hz.iter()).map(|(a, b)| match (a, b) {
-        (Some(a), None) => a,
-        (None, Some(b)) => b,
-        other => panic!("row with {other:?}: exactly one unit column must hold the value"),
-    }).collect()
+    s.iter()
+        .zip(hz.iter())
+        .map(|(a, b)| match (a, b) {
+            (Some(a), None) => a,
+            (None, Some(b)) => b,
+            other => panic!("row with {other:?}: exactly one unit column must hold the value"),
+        })
+        .collect()
 }
