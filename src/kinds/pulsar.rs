@@ -16,7 +16,7 @@ use crate::pipeline::preflight::{Facts, Level, Preflight, check_coverage, check_
 use crate::pipeline::shared::{EarthCfg, EphemerisCfg, OutputCfg, SharedInputs, StationsCfg, load_shared, shared_provenance};
 use crate::pipeline::table::assemble;
 use crate::pipeline::tally::{PlotSpec, ResidualSet, Tally, Unit};
-use crate::pipeline::{Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
+use crate::pipeline::{IoPaths, Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
 use crate::pulsar::clock::ClockTable;
 use crate::pulsar::{Arrival, ArrivalResult, PulsarContext, SpinModel, shapiro_bodies};
 use crate::reject::{Reject, RejectCode};
@@ -118,8 +118,7 @@ pub const DEFAULT_PULSAR_SHAPIRO: &[&str] = &["sun", "venus", "jupiter", "saturn
 #[derive(Debug)]
 pub struct Pulsar {
     pub ctx: PulsarContext,
-    pub input_path: PathBuf,
-    pub output_path: PathBuf,
+    pub paths: IoPaths,
     pub subtract_weighted_mean: bool,
     /// Input files: role, path, coverage text (for provenance).
     pub inputs: Vec<(String, PathBuf, String)>,
@@ -196,7 +195,7 @@ impl Pulsar {
             return Err(invalid("[corrections] ppn_gamma must be finite".into()));
         }
         let ctx = PulsarContext { ephemeris, earth, stations, clocks, input_is_site_clock, allow_clock_extrapolation: cfg.clocks.allow_extrapolation, source, spin, dm_pc_cm3, shapiro, ppn_gamma };
-        Ok(Pulsar { ctx, input_path: file.resolve(&cfg.input.path), output_path: file.resolve(&cfg.output.path), subtract_weighted_mean: cfg.residuals.subtract_weighted_mean, inputs, constants })
+        Ok(Pulsar { ctx, paths: IoPaths::resolve(file, &cfg.input.path, &cfg.output.path), subtract_weighted_mean: cfg.residuals.subtract_weighted_mean, inputs, constants })
     }
 
     /// Computes every row of a batch: results in input order (Err = reject reason).
@@ -426,21 +425,12 @@ impl Kind for Pulsar {
         "pulsar"
     }
 
-    fn input_path(&self) -> &Path {
-        &self.input_path
+    fn paths(&self) -> &IoPaths {
+        &self.paths
     }
 
-    fn output_path(&self) -> &Path {
-        &self.output_path
-    }
-
-    fn override_paths(&mut self, input: Option<PathBuf>, output: Option<PathBuf>) {
-        if let Some(i) = input {
-            self.input_path = i;
-        }
-        if let Some(o) = output {
-            self.output_path = o;
-        }
+    fn paths_mut(&mut self) -> &mut IoPaths {
+        &mut self.paths
     }
 
     fn provenance(&self, file: &PipelineFile) -> Result<Provenance, PipelineError> {

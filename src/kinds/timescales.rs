@@ -15,11 +15,11 @@ use serde::Deserialize;
 
 use crate::io::Columns;
 use crate::parallel::Exec;
-use crate::pipeline::preflight::{Facts, Level, Preflight};
+use crate::pipeline::preflight::{Facts, Preflight, check_leap_seconds};
 use crate::pipeline::provenance::leap_coverage;
 use crate::pipeline::table::assemble;
 use crate::pipeline::tally::Tally;
-use crate::pipeline::{Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
+use crate::pipeline::{IoPaths, Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
 use crate::reject::{Reject, RejectCode};
 use crate::time::femto::{FS_PER_S, ratio_to_f64};
 use crate::time::{ExpiryPolicy, LeapSecondTable, TimeError, TimeScale, TimeScales};
@@ -73,8 +73,7 @@ pub struct Timescales {
     in_scale: TimeScale,
     out_scales: Vec<TimeScale>,
     leap_path: Option<PathBuf>,
-    input_path: PathBuf,
-    output_path: PathBuf,
+    paths: IoPaths,
 }
 
 impl Timescales {
@@ -97,7 +96,7 @@ impl Timescales {
         if cfg.time.extend_leap_table {
             leaps = leaps.with_policy(ExpiryPolicy::ExtendLastOffset);
         }
-        Ok(Self { ts: TimeScales::new(leaps), in_scale, out_scales, leap_path, input_path: file.resolve(&cfg.input.path), output_path: file.resolve(&cfg.output.path) })
+        Ok(Self { ts: TimeScales::new(leaps), in_scale, out_scales, leap_path, paths: IoPaths::resolve(file, &cfg.input.path, &cfg.output.path) })
     }
 
     fn convert_row(&self, day: Option<i64>, frac: Option<f64>) -> Result<Converted, Reject> {
@@ -126,21 +125,12 @@ impl Kind for Timescales {
         "timescales"
     }
 
-    fn input_path(&self) -> &Path {
-        &self.input_path
+    fn paths(&self) -> &IoPaths {
+        &self.paths
     }
 
-    fn output_path(&self) -> &Path {
-        &self.output_path
-    }
-
-    fn override_paths(&mut self, input: Option<PathBuf>, output: Option<PathBuf>) {
-        if let Some(i) = input {
-            self.input_path = i;
-        }
-        if let Some(o) = output {
-            self.output_path = o;
-        }
+    fn paths_mut(&mut self) -> &mut IoPaths {
+        &mut self.paths
     }
 
     fn provenance(&self, file: &PipelineFile) -> Result<Provenance, PipelineError> {
@@ -164,15 +154,8 @@ impl Kind for Timescales {
     }
 
     fn check(&self, report: &mut Preflight, facts: &Facts) {
-        let Some(s) = facts.span() else { return };
-        let leaps = self.ts.leap_seconds();
-        if s.hi >= leaps.window_mjd() && leaps.policy() != ExpiryPolicy::ExtendLastOffset {
-            report.add(
-                Level::Problem,
-                format!("leap-second table ({}) cannot answer UTC on or after MJD {} (expires MJD {}); epochs reach MJD {}", leaps.source_name(), leaps.window_mjd(), leaps.expires_mjd(), s.hi),
-            );
-        } else {
-            report.add(Level::Ok, format!("leap-second table valid until MJD {} (expires MJD {})", leaps.window_mjd(), leaps.expires_mjd()));
+        if let Some(s) = facts.span() {
+            check_leap_seconds(report, self.ts.leap_seconds(), &s);
         }
     }
 

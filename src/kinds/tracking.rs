@@ -22,7 +22,7 @@ use crate::pipeline::provenance::kernel_coverage;
 use crate::pipeline::shared::{EarthCfg, EphemerisCfg, OutputCfg, SharedInputs, StationsCfg, load_shared, shared_provenance};
 use crate::pipeline::table::assemble;
 use crate::pipeline::tally::{PlotSpec, ResidualSet, Tally, Unit};
-use crate::pipeline::{Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
+use crate::pipeline::{IoPaths, Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
 use crate::reject::{Reject, RejectCode};
 use crate::stats::gaussian;
 use crate::tracking::observables::{Kind as Observable, Measurement, TrackingContext, TrackingResult};
@@ -88,8 +88,7 @@ pub struct TrackingPipeline {
 #[derive(Debug)]
 pub struct Tracking {
     pub ctx: TrackingContext,
-    pub input_path: PathBuf,
-    pub output_path: PathBuf,
+    pub paths: IoPaths,
     pub inputs: Vec<(String, PathBuf, String)>,
     pub constants: Constants,
 }
@@ -145,7 +144,7 @@ impl Tracking {
             _ => None,
         };
         let ctx = TrackingContext { ephemeris, earth, stations, target, shapiro, ppn_gamma, transponder_delay_s: cfg.target.transponder_delay_s, turnaround, field, troposphere };
-        Ok(Tracking { ctx, input_path: file.resolve(&cfg.input.path), output_path: file.resolve(&cfg.output.path), inputs, constants })
+        Ok(Tracking { ctx, paths: IoPaths::resolve(file, &cfg.input.path, &cfg.output.path), inputs, constants })
     }
 
     /// Computes every row (Err = reject reason), in input order.
@@ -237,21 +236,12 @@ impl Kind for Tracking {
         "tracking"
     }
 
-    fn input_path(&self) -> &Path {
-        &self.input_path
+    fn paths(&self) -> &IoPaths {
+        &self.paths
     }
 
-    fn output_path(&self) -> &Path {
-        &self.output_path
-    }
-
-    fn override_paths(&mut self, input: Option<PathBuf>, output: Option<PathBuf>) {
-        if let Some(i) = input {
-            self.input_path = i;
-        }
-        if let Some(o) = output {
-            self.output_path = o;
-        }
+    fn paths_mut(&mut self) -> &mut IoPaths {
+        &mut self.paths
     }
 
     fn provenance(&self, file: &PipelineFile) -> Result<Provenance, PipelineError> {

@@ -34,6 +34,20 @@ pub struct SynthOptions {
     pub seed: u64,
 }
 
+/// A pipeline's resolved `[input] path` and `[output] path`.
+#[derive(Clone, Debug, PartialEq)]
+pub struct IoPaths {
+    pub input: PathBuf,
+    pub output: PathBuf,
+}
+
+impl IoPaths {
+    /// Both paths from a pipeline's `[input]` and `[output]` tables.
+    pub fn resolve(file: &PipelineFile, input: &Path, output: &Path) -> Self {
+        Self { input: file.resolve(input), output: file.resolve(output) }
+    }
+}
+
 /// A kind of pipeline, loaded: its configuration and shared inputs.
 ///
 /// Row-level problems are never errors: `process` turns them into rejects
@@ -43,14 +57,32 @@ pub trait Kind: Send + std::fmt::Debug {
     /// The `kind` key.
     fn name(&self) -> &'static str;
 
+    /// Where the kind reads and writes.
+    fn paths(&self) -> &IoPaths;
+
+    /// Where the kind reads and writes, to change.
+    fn paths_mut(&mut self) -> &mut IoPaths;
+
     /// The resolved `[input] path`.
-    fn input_path(&self) -> &Path;
+    fn input_path(&self) -> &Path {
+        &self.paths().input
+    }
 
     /// The resolved `[output] path`.
-    fn output_path(&self) -> &Path;
+    fn output_path(&self) -> &Path {
+        &self.paths().output
+    }
 
     /// Runs on `input` and/or writes to `output` instead (command-line overrides).
-    fn override_paths(&mut self, input: Option<PathBuf>, output: Option<PathBuf>);
+    fn override_paths(&mut self, input: Option<PathBuf>, output: Option<PathBuf>) {
+        let p = self.paths_mut();
+        if let Some(i) = input {
+            p.input = i;
+        }
+        if let Some(o) = output {
+            p.output = o;
+        }
+    }
 
     /// Provenance shared by every partition: [`Provenance::start`], the
     /// shared input files, constants and model parameters.

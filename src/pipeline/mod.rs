@@ -33,7 +33,7 @@ use std::path::{Path, PathBuf};
 
 pub use error::PipelineError;
 pub use file::{PipelineFile, sha256_file, sha256_hex};
-pub use kind::{Kind, Processed, SynthOptions};
+pub use kind::{IoPaths, Kind, Processed, SynthOptions};
 pub use partition::{for_each_partition, input_rows, partial_paths, rejects_path, resolve_inputs};
 pub use preflight::{Level, Preflight};
 pub use provenance::{Provenance, SOURCE_REVISION};

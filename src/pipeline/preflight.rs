@@ -17,6 +17,7 @@ use super::kind::Kind;
 use super::table::{IdChecker, ids, parquet_rows, read_parquet_slice};
 use crate::earth::{EarthModel, StationCatalog};
 use crate::ephemeris::{Ephemeris, TdbSeconds, body_name};
+use crate::time::{ExpiryPolicy, LeapSecondTable};
 
 /// Severity of a finding.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
@@ -236,8 +237,13 @@ pub fn check_earth(p: &mut Preflight, earth: &EarthModel, s: &Span, days: &BTree
             p.add(Level::Note, format!("{n} rows fall where the EOP values are PREDICTIONS (from MJD {pred}); rerun with newer EOP for final values"));
         }
     }
-    let leaps = earth.time.leap_seconds();
-    if s.hi >= leaps.window_mjd() {
+    check_leap_seconds(p, earth.time.leap_seconds(), s);
+}
+
+/// Whether the leap-second table answers UTC over the observations (a
+/// table extended past its window on request counts as answering).
+pub fn check_leap_seconds(p: &mut Preflight, leaps: &LeapSecondTable, s: &Span) {
+    if s.hi >= leaps.window_mjd() && leaps.policy() != ExpiryPolicy::ExtendLastOffset {
         p.add(
             Level::Problem,
             format!("leap-second table ({}) cannot answer UTC on or after MJD {} (expires MJD {}); observations reach MJD {}", leaps.source_name(), leaps.window_mjd(), leaps.expires_mjd(), s.hi),
