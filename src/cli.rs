@@ -115,6 +115,10 @@ pub struct RunArgs {
     /// Do not write residual plots.
     #[arg(long)]
     pub no_plots: bool,
+    /// Exit with code 3 when more than this fraction of the rows is rejected
+    /// (0 … 1; the run still writes everything).
+    #[arg(long, default_value_t = lapse::commands::run::DEFAULT_MAX_REJECTED_FRACTION)]
+    pub max_rejected_fraction: f64,
 }
 
 /// Arguments of `lapse time`.

@@ -53,7 +53,13 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             if !quiet {
                 print(&commands::run::render_summary(&args.pipeline, &summary))?;
             }
-            Ok(ExitCode::SUCCESS)
+            match commands::run::rejected_beyond(&summary, args.max_rejected_fraction)? {
+                Some(message) => {
+                    eprintln!("lapse: {message}");
+                    Ok(ExitCode::from(3))
+                }
+                None => Ok(ExitCode::SUCCESS),
+            }
         }
         Command::Synth { pipeline, plan, output, noise_ns, noise_from_sigma, seed } => {
             let opts = lapse::pipeline::SynthOptions { noise_s: noise_ns.map(|ns| ns * 1e-9), noise_from_sigma, seed };

@@ -14,9 +14,15 @@ fn weighted_mean_and_weight(pairs: impl Iterator<Item = (f64, f64)>) -> (f64, f6
 }
 
 /// Weighted mean of residuals given as (residual, σ) pairs in one unit: the
-/// mean [`residual_summary`] reports, in one pass without collecting them.
-pub fn weighted_mean(pairs: impl Iterator<Item = (f64, f64)>) -> f64 {
-    weighted_mean_and_weight(pairs).0
+/// mean [`residual_summary`] reports (scaled weights when the plain sums
+/// overflow).
+pub fn weighted_mean(pairs: impl Iterator<Item = (f64, f64)> + Clone) -> f64 {
+    let (mean, sw) = weighted_mean_and_weight(pairs.clone());
+    if sw.is_finite() && mean.is_finite() {
+        return mean;
+    }
+    let (r, s): (Vec<f64>, Vec<f64>) = pairs.unzip();
+    if r.is_empty() { 0.0 } else { scaled_summary(&r, &s, false).weighted_mean }
 }
 
 /// Weighted statistics of residuals (in the residuals' own unit).
@@ -36,12 +42,37 @@ pub struct ResidualSummary {
 /// eq. 4.17 (weighted mean) and eq. 11.1 (χ²).
 pub fn residual_summary(residual: &[f64], sigma: &[f64], about_mean: bool) -> ResidualSummary {
     let (mean, sw) = weighted_mean_and_weight(residual.iter().copied().zip(sigma.iter().copied()));
+    if !(sw.is_finite() && mean.is_finite()) && !residual.is_empty() {
+        return scaled_summary(residual, sigma, about_mean);
+    }
     let c = if about_mean { mean } else { 0.0 };
     let (mut swr2, mut chi2) = (0.0, 0.0);
     for (r, s) in residual.iter().zip(sigma) {
         let w = 1.0 / (s * s);
         swr2 += w * (r - c) * (r - c);
         chi2 += (r - c) * (r - c) * w;
+    }
+    ResidualSummary { count: residual.len(), weighted_mean: mean, weighted_rms: if sw > 0.0 { (swr2 / sw).sqrt() } else { 0.0 }, chi2 }
+}
+
+/// [`residual_summary`] with weights scaled by the smallest σ (so no 1/σ²
+/// overflows): the fallback for σ so small or so many rows that the plain
+/// sums overflow. Same values to rounding.
+fn scaled_summary(residual: &[f64], sigma: &[f64], about_mean: bool) -> ResidualSummary {
+    let s_min = sigma.iter().copied().filter(|s| *s > 0.0).fold(f64::INFINITY, f64::min);
+    let (mut sw, mut swr) = (0.0, 0.0);
+    for (r, s) in residual.iter().zip(sigma) {
+        let w = (s_min / s) * (s_min / s);
+        sw += w;
+        swr += w * r;
+    }
+    let mean = if sw > 0.0 { swr / sw } else { 0.0 };
+    let c = if about_mean { mean } else { 0.0 };
+    let (mut swr2, mut chi2) = (0.0, 0.0);
+    for (r, s) in residual.iter().zip(sigma) {
+        let w = (s_min / s) * (s_min / s);
+        swr2 += w * (r - c) * (r - c);
+        chi2 += ((r - c) / s) * ((r - c) / s);
     }
     ResidualSummary { count: residual.len(), weighted_mean: mean, weighted_rms: if sw > 0.0 { (swr2 / sw).sqrt() } else { 0.0 }, chi2 }
 }
@@ -78,6 +109,17 @@ mod tests {
         assert!((s.chi2 - 8.0).abs() < 1e-12);
         assert!((s.weighted_rms - (8.0f64 / 3.0).sqrt()).abs() < 1e-15);
         assert_eq!(weighted_mean([(1.0, 1.0), (4.0, 2.0)].into_iter()), (1.0 + 4.0 / 4.0) / 1.25);
+    }
+
+    #[test]
+    fn tiny_sigma_does_not_overflow_the_statistics() {
+        // 1/σ² overflows for σ = 1e-170: the scaled weights give the same mean.
+        let r = [1.0, 3.0];
+        let m = weighted_mean(r.iter().copied().zip([1e-170, 1e-170]));
+        assert_eq!(m, 2.0);
+        let s = residual_summary(&r, &[1e-170, 2e-170], true);
+        assert!(s.weighted_mean.is_finite() && s.weighted_rms.is_finite(), "{s:?}");
+        assert!((s.weighted_mean - (1.0 + 3.0 / 4.0) / 1.25).abs() < 1e-15);
     }
 
     #[test]

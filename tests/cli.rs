@@ -88,7 +88,7 @@ fn timescales_pipeline_rejects_bad_rows_and_counts_them() {
     let d = tmpdir("pipeline");
     write_epochs(&d.join("in.parquet"), &["a", "b", "c", "d", "e"], &[57_753, 58_000, 40_000, 58_001, 99_000], &[86_400.5 / 86_401.0, 0.5, 0.1, f64::NAN, 0.2]);
     let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"in.parquet\"\n[output]\npath = \"out/out.parquet\"\n");
-    let o = lapse(&["run", p.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]);
     let (out, err) = text(&o);
     assert_eq!(o.status.code(), Some(0), "{out}{err}");
     let df = ParquetReader::new(std::fs::File::open(d.join("out/out.parquet")).unwrap()).finish().unwrap();
@@ -112,22 +112,22 @@ fn pipeline_errors_are_clean() {
     let d = tmpdir("pipeline-errors");
     write_epochs(&d.join("in.parquet"), &["a", "a"], &[58_000, 58_001], &[0.1, 0.2]);
     let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"in.parquet\"\n[output]\npath = \"o.parquet\"\n");
-    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "duplicate obs_id 'a'");
+    assert_clean_error(&lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]), "duplicate obs_id 'a'");
     let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"in.parquet\"\nbogus = 1\n[output]\npath = \"o.parquet\"\n");
-    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "bogus");
+    assert_clean_error(&lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]), "bogus");
     let p = write_pipeline(&d, "kind = \"astrology\"\n");
-    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "unknown kind 'astrology'");
+    assert_clean_error(&lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]), "unknown kind 'astrology'");
     let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"missing.parquet\"\n[output]\npath = \"o.parquet\"\n");
-    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "missing.parquet");
+    assert_clean_error(&lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]), "missing.parquet");
     std::fs::write(d.join("junk.parquet"), b"PAR1 this is not parquet").unwrap();
     let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"junk.parquet\"\n[output]\npath = \"o.parquet\"\n");
-    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "junk.parquet");
+    assert_clean_error(&lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]), "junk.parquet");
     // A mistyped column names file and column.
     let mut df = df!("obs_id" => ["x"], "mjd_day" => ["58000"], "mjd_frac" => [0.5]).unwrap();
     ParquetWriter::new(std::fs::File::create(d.join("typed.parquet")).unwrap()).finish(&mut df).unwrap();
     let p = write_pipeline(&d, "kind = \"timescales\"\n[input]\npath = \"typed.parquet\"\n[output]\npath = \"o.parquet\"\n");
-    assert_clean_error(&lapse(&["run", p.to_str().unwrap()]), "column 'mjd_day' has type");
-    assert_clean_error(&lapse(&["run", "/no/such/pipeline.toml"]), "/no/such/pipeline.toml");
+    assert_clean_error(&lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]), "column 'mjd_day' has type");
+    assert_clean_error(&lapse(&["run", "--max-rejected-fraction", "1", "/no/such/pipeline.toml"]), "/no/such/pipeline.toml");
 }
 
 #[test]

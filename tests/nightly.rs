@@ -71,7 +71,7 @@ fn preflight_exit_codes_and_messages() {
     assert!(out.contains("leap-second table"), "{out}");
     assert!(out.contains("clock table") && out.contains("PROBLEM"), "{out}");
     // `lapse run` does the same checks, warns, and still accounts for every row.
-    let o = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap(), "--no-plots"]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(String::from_utf8_lossy(&o.stderr).contains("preflight: unknown site"));
     // Unusable: a missing column (exit 2, nothing written).
@@ -81,7 +81,7 @@ fn preflight_exit_codes_and_messages() {
     let o = lapse(&["check", p.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stdout).contains("missing column 'freq_mhz'"));
-    let o = lapse(&["run", p.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("missing column 'freq_mhz'"));
     assert!(!d.join("o.parquet").exists());
@@ -97,11 +97,11 @@ fn partitioned_run_equals_single_file_run_and_skips_up_to_date_partitions() {
     let single_in = d.join("all.parquet");
     write(&single_in, &mut all.clone());
     let p_single = pulsar_pipeline(&d, &single_in.display().to_string(), &d.join("single.parquet").display().to_string());
-    assert_eq!(lapse(&["run", p_single.to_str().unwrap(), "-q", "--no-plots"]).status.code(), Some(0));
+    assert_eq!(lapse(&["run", "--max-rejected-fraction", "1", p_single.to_str().unwrap(), "-q", "--no-plots"]).status.code(), Some(0));
     let p_part = pulsar_pipeline(&d, &d.join("in").display().to_string(), &d.join("out").display().to_string());
     std::fs::rename(&p_part, d.join("part.toml")).unwrap();
     let p_part = d.join("part.toml");
-    let o = lapse(&["run", p_part.to_str().unwrap(), "--no-plots"]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p_part.to_str().unwrap(), "--no-plots"]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(String::from_utf8_lossy(&o.stdout).contains("partitions 4 processed, 0 up to date"));
     // Same residuals, row for row.
@@ -116,18 +116,18 @@ fn partitioned_run_equals_single_file_run_and_skips_up_to_date_partitions() {
     }
     assert_eq!(column_bits(&joined), column_bits(&single));
     // A rerun skips every partition; a changed pipeline redoes them all.
-    let o = lapse(&["run", p_part.to_str().unwrap(), "--no-plots"]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p_part.to_str().unwrap(), "--no-plots"]);
     assert!(String::from_utf8_lossy(&o.stdout).contains("partitions 0 processed, 4 up to date"), "{}", String::from_utf8_lossy(&o.stdout));
     let text = std::fs::read_to_string(&p_part).unwrap().replace("ppn_gamma = 1.0", "ppn_gamma = 1.0 # changed");
     std::fs::write(&p_part, text).unwrap();
-    let o = lapse(&["run", p_part.to_str().unwrap(), "--no-plots"]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p_part.to_str().unwrap(), "--no-plots"]);
     assert!(String::from_utf8_lossy(&o.stdout).contains("partitions 4 processed, 0 up to date"));
     // A changed partition is redone alone.
     let mut first = read(&d.join("in/night-00.parquet"));
     let s: Vec<f64> = first.column("sigma_us").unwrap().f64().unwrap().iter().map(|v| v.unwrap() * 1.5).collect();
     first.with_column(Column::new("sigma_us".into(), s)).unwrap();
     write(&d.join("in/night-00.parquet"), &mut first);
-    let o = lapse(&["run", p_part.to_str().unwrap(), "--no-plots"]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p_part.to_str().unwrap(), "--no-plots"]);
     assert!(String::from_utf8_lossy(&o.stdout).contains("partitions 1 processed, 3 up to date"));
 }
 
@@ -148,7 +148,7 @@ fn a_run_leaves_other_writers_partial_files_alone() {
         std::fs::write(f, b"in progress").unwrap();
     }
     let p = pulsar_pipeline(&d, &d.join("in/night-00.parquet").display().to_string(), &out.join("night-00.parquet").display().to_string());
-    let o = lapse(&["run", p.to_str().unwrap(), "-q", "--no-plots"]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap(), "-q", "--no-plots"]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     for f in &neighbour {
         assert_eq!(std::fs::read(f).unwrap(), b"in progress", "{} was touched", f.display());
@@ -191,7 +191,7 @@ fn killed_run_resumes_to_the_same_outputs() {
     // Uninterrupted reference run into another folder.
     let p_ref = d.join("ref.toml");
     std::fs::write(&p_ref, std::fs::read_to_string(&p).unwrap().replace(&d.join("out").display().to_string(), &d.join("ref").display().to_string())).unwrap();
-    assert_eq!(lapse(&["run", p_ref.to_str().unwrap(), "-q", "--no-plots"]).status.code(), Some(0));
+    assert_eq!(lapse(&["run", "--max-rejected-fraction", "1", p_ref.to_str().unwrap(), "-q", "--no-plots"]).status.code(), Some(0));
     // Start, kill as soon as the first partition is complete.
     let mut child = Command::new(env!("CARGO_BIN_EXE_lapse")).args(["run", p.to_str().unwrap(), "-q", "--no-plots", "--threads", "1"]).stdout(Stdio::null()).stderr(Stdio::null()).spawn().unwrap();
     let started = std::time::Instant::now();
@@ -216,7 +216,7 @@ fn killed_run_resumes_to_the_same_outputs() {
         }
     }
     // Resume.
-    let o = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap(), "--no-plots"]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     let stdout = String::from_utf8_lossy(&o.stdout);
     assert!(stdout.contains(&format!("{} up to date", finished_before)), "{stdout}");
@@ -241,7 +241,7 @@ fn killed_run_resumes_to_the_same_outputs() {
 fn plots_are_written_and_are_real_images() {
     let d = tmpdir("plots");
     let out = d.join("demo.parquet");
-    let o = lapse(&["run", root().join("pipelines/tracking_demo.toml").to_str().unwrap(), "--output", out.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", root().join("pipelines/tracking_demo.toml").to_str().unwrap(), "--output", out.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0));
     for kind in ["doppler_2way", "doppler_3way", "light_time_2way"] {
         for suffix in ["", "_normalised"] {
@@ -258,7 +258,7 @@ fn plots_are_written_and_are_real_images() {
     // --no-plots writes none.
     let d2 = tmpdir("noplots");
     let out2 = d2.join("demo.parquet");
-    assert_eq!(lapse(&["run", root().join("pipelines/tracking_demo.toml").to_str().unwrap(), "--output", out2.to_str().unwrap(), "--no-plots"]).status.code(), Some(0));
+    assert_eq!(lapse(&["run", "--max-rejected-fraction", "1", root().join("pipelines/tracking_demo.toml").to_str().unwrap(), "--output", out2.to_str().unwrap(), "--no-plots"]).status.code(), Some(0));
     assert!(std::fs::read_dir(&d2).unwrap().flatten().all(|e| e.path().extension().is_none_or(|x| x != "png")));
 }
 
@@ -270,7 +270,7 @@ fn streamed_partitions_equal_in_memory_ones() {
     let d = tmpdir("stream");
     let demo = root().join("pipelines/pulsar_demo.toml");
     let (a, b) = (d.join("mem.parquet"), d.join("stream.parquet"));
-    assert_eq!(lapse(&["run", demo.to_str().unwrap(), "--output", a.to_str().unwrap(), "-q"]).status.code(), Some(0));
+    assert_eq!(lapse(&["run", "--max-rejected-fraction", "1", demo.to_str().unwrap(), "--output", a.to_str().unwrap(), "-q"]).status.code(), Some(0));
     let o = Command::new(env!("CARGO_BIN_EXE_lapse"))
         .args(["run", demo.to_str().unwrap(), "--output", b.to_str().unwrap(), "-q"])
         .env("LAPSE_STREAM_ROWS", "100")
@@ -290,7 +290,10 @@ fn streamed_partitions_equal_in_memory_ones() {
     let groups = d.join("groups.parquet");
     ParquetWriter::new(std::fs::File::create(&groups).unwrap()).with_row_group_size(Some(200)).finish(&mut df).unwrap();
     let (gm, gs) = (d.join("groups-mem.parquet"), d.join("groups-stream.parquet"));
-    assert_eq!(lapse(&["run", demo.to_str().unwrap(), "--input", groups.to_str().unwrap(), "--output", gm.to_str().unwrap(), "-q", "--no-plots"]).status.code(), Some(0));
+    assert_eq!(
+        lapse(&["run", "--max-rejected-fraction", "1", demo.to_str().unwrap(), "--input", groups.to_str().unwrap(), "--output", gm.to_str().unwrap(), "-q", "--no-plots"]).status.code(),
+        Some(0)
+    );
     let o = Command::new(env!("CARGO_BIN_EXE_lapse"))
         .args(["run", demo.to_str().unwrap(), "--input", groups.to_str().unwrap(), "--output", gs.to_str().unwrap(), "-q", "--no-plots"])
         .env("LAPSE_STREAM_ROWS", "100")

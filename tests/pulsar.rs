@@ -96,7 +96,7 @@ fn noiseless_synthetic_arrivals_give_sub_ns_residuals() {
     let p = pipeline(&d, &toas, &[("subtract_weighted_mean = true", "subtract_weighted_mean = false")]);
     let o = lapse(&["synth", p.to_str().unwrap(), "--plan", plan.to_str().unwrap(), "--output", toas.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
-    let o = lapse(&["run", p.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     let out = read(&d.join("out.parquet"));
     let r = f64s(&out, "residual_s");
@@ -141,7 +141,7 @@ fn every_row_is_accounted_for() {
     let mut df = df!("obs_id" => ids, "site" => sites, "arrival_mjd_day" => days, "arrival_mjd_frac" => fracs, "freq_mhz" => freqs, "sigma_us" => sig, "backend" => ["x"; 9]).unwrap();
     ParquetWriter::new(std::fs::File::create(&toas).unwrap()).finish(&mut df).unwrap();
     let p = pipeline(&d, &toas, &[]);
-    let o = lapse(&["run", p.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     let out = read(&d.join("out.parquet"));
     let rej = read(&d.join("out.rejects.parquet"));
@@ -176,7 +176,7 @@ fn clock_extrapolation_is_explicit_and_flagged() {
     let mut df = df!("obs_id" => ["late"], "site" => ["FALCON-RT"], "arrival_mjd_day" => [61_000i64], "arrival_mjd_frac" => [0.3], "freq_mhz" => [1400.0], "sigma_us" => [0.5]).unwrap();
     ParquetWriter::new(std::fs::File::create(&toas).unwrap()).finish(&mut df).unwrap();
     let p = pipeline(&d, &toas, &[("allow_extrapolation = false", "allow_extrapolation = true")]);
-    let o = lapse(&["run", p.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     let out = read(&d.join("out.parquet"));
     assert_eq!(out.column("clock_extrapolated").unwrap().bool().unwrap().get(0), Some(true));
@@ -190,7 +190,7 @@ fn bad_tables_and_pipelines_stop_before_writing() {
     let check = |df: &mut DataFrame, needle: &str| {
         ParquetWriter::new(std::fs::File::create(&toas).unwrap()).finish(df).unwrap();
         let p = pipeline(&d, &toas, &[]);
-        let o = lapse(&["run", p.to_str().unwrap()]);
+        let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]);
         let err = String::from_utf8_lossy(&o.stderr);
         assert_eq!(o.status.code(), Some(2), "{err}");
         assert!(err.contains(needle), "expected '{needle}': {err}");
@@ -207,11 +207,11 @@ fn bad_tables_and_pipelines_stop_before_writing() {
     );
     // Unknown keys and bad values in the pipeline.
     let p = pipeline(&d, &toas, &[("[spin]", "[spin]\nfrequncy_typo = 3.0")]);
-    let o = lapse(&["run", p.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("frequncy_typo"));
     let p = pipeline(&d, &toas, &[("shapiro_bodies = [\"sun\",", "shapiro_bodies = [\"vulcan\", \"sun\",")]);
-    let o = lapse(&["run", p.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap()]);
     assert!(String::from_utf8_lossy(&o.stderr).contains("unknown Shapiro body 'vulcan'"));
 }
 

@@ -180,7 +180,7 @@ fn doppler_sign_and_scale_follow_the_range() {
     )
     .unwrap();
     ParquetWriter::new(std::fs::File::create(&input).unwrap()).finish(&mut df).unwrap();
-    let o = lapse(&["run", pipeline(&d, &input).to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", pipeline(&d, &input).to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     let out = read(&d.join("out.parquet"));
     let c = by_unit(&out, "computed");
@@ -206,7 +206,7 @@ fn every_tracking_row_is_accounted_for() {
         "count_s" => counts, "uplink_hz" => [7.1644e9; 9], "value" => values, "sigma" => [1e-3; 9], "pass" => [1i64; 9])
     .unwrap();
     ParquetWriter::new(std::fs::File::create(&input).unwrap()).finish(&mut df).unwrap();
-    let o = lapse(&["run", pipeline(&d, &input).to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", pipeline(&d, &input).to_str().unwrap()]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     let out = read(&d.join("out.parquet"));
     let rej = read(&d.join("out.rejects.parquet"));
@@ -305,8 +305,8 @@ fn troposphere_is_opt_in_and_sized_right() {
     );
     let tropo = d.join("tropo.toml");
     std::fs::write(&tropo, text.replace(&d.join("out.parquet").display().to_string(), &d.join("tropo.parquet").display().to_string())).unwrap();
-    assert_eq!(lapse(&["run", plain.to_str().unwrap(), "-q"]).status.code(), Some(0));
-    let o = lapse(&["run", tropo.to_str().unwrap(), "-q"]);
+    assert_eq!(lapse(&["run", "--max-rejected-fraction", "1", plain.to_str().unwrap(), "-q"]).status.code(), Some(0));
+    let o = lapse(&["run", "--max-rejected-fraction", "1", tropo.to_str().unwrap(), "-q"]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     let (a, b) = (read(&d.join("out.parquet")), read(&d.join("tropo.parquet")));
     let col = |df: &DataFrame, c: &str| -> Vec<f64> { df.column(c).unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect() };

@@ -13,6 +13,9 @@ pub enum RunError {
     /// A partition's preflight found it unusable (nothing of it was written).
     #[error("preflight: {0}")]
     Unusable(String),
+    /// A command-line option out of its range.
+    #[error("{0}")]
+    Option(String),
 }
 
 /// Runs a pipeline file. Each partition's preflight findings above `ok` go
@@ -39,6 +42,23 @@ pub fn run(pipeline: &Path, opts: &RunOptions, warn: &mut dyn FnMut(&Preflight))
             None => RunError::Pipeline(e),
         }),
     }
+}
+
+/// Default of `--max-rejected-fraction`: a run that rejects more than this
+/// fraction of its rows exits with code 3.
+pub const DEFAULT_MAX_REJECTED_FRACTION: f64 = 0.1;
+
+/// A message when the run rejected more than `max_fraction` of its rows
+/// (every row counts when all were rejected, whatever the limit below 1).
+pub fn rejected_beyond(s: &RunSummary, max_fraction: f64) -> Result<Option<String>, RunError> {
+    if !(0.0..=1.0).contains(&max_fraction) {
+        return Err(RunError::Option(format!("--max-rejected-fraction {max_fraction} must lie in 0 … 1")));
+    }
+    let all_rejected = s.rows_in > 0 && s.rows_rejected == s.rows_in;
+    let fraction = if s.rows_in == 0 { 0.0 } else { s.rows_rejected as f64 / s.rows_in as f64 };
+    Ok((fraction > max_fraction || (all_rejected && max_fraction < 1.0)).then(|| {
+        format!("{} of {} rows rejected ({:.1} %), more than --max-rejected-fraction {max_fraction}: exit code 3 (see {})", s.rows_rejected, s.rows_in, 100.0 * fraction, s.rejects.display())
+    }))
 }
 
 /// The summary a run prints.

@@ -109,6 +109,10 @@ pub struct PulsarPipeline {
     output: OutputCfg,
 }
 
+/// Epochs a pulsar model may name (source position, spin), MJD: 1900-01-01
+/// to 2100-01-01, the span the ephemerides and time-scale models here serve.
+pub const MJD_RANGE: (f64, f64) = (15_020.0, 88_069.0);
+
 /// Default Shapiro bodies for pulsar timing (the bodies whose delay exceeds
 /// ≈ 1 ns for a ray within a few degrees: Backer & Hellings 1986, ARA&A 24,
 /// 537, sec. 3.2; Lorimer & Kramer 2005, sec. 8.2.3).
@@ -151,6 +155,26 @@ impl Pulsar {
             clocks.insert(site.clone(), tables);
         }
         let s = &cfg.source;
+        // Documented ranges (README, "Pulsar batches"): outside them a model is
+        // not meant to be evaluated, and results would be absurd or non-finite.
+        file.check_range("[source] ra_deg", s.ra_deg, 0.0, 360.0)?;
+        file.check_range("[source] dec_deg", s.dec_deg, -90.0, 90.0)?;
+        file.check_range("[source] position_epoch_mjd", s.position_epoch_mjd, MJD_RANGE.0, MJD_RANGE.1)?;
+        file.check_range("[source] pm_ra_cosdec_mas_per_yr", s.pm_ra_cosdec_mas_per_yr.unwrap_or(0.0), -1e5, 1e5)?;
+        file.check_range("[source] pm_dec_mas_per_yr", s.pm_dec_mas_per_yr.unwrap_or(0.0), -1e5, 1e5)?;
+        file.check_range("[source] parallax_mas", s.parallax_mas.unwrap_or(0.0), 0.0, 1e3)?;
+        let sp = &cfg.spin;
+        file.check_range("[spin] frequency_hz", sp.frequency_hz, 1e-4, 5e3)?;
+        file.check_range("[spin] epoch_mjd", sp.epoch_mjd, MJD_RANGE.0, MJD_RANGE.1)?;
+        for (k, d) in sp.derivatives.iter().enumerate() {
+            // Each term's phase over a century stays below 1e13 cycles:
+            // |f_k| · T^(k+2)/(k+2)! ≤ 1e13 with T = 100 Julian years.
+            let t_s: f64 = 100.0 * 365.25 * 86_400.0;
+            let bound = 1e13 * (1..=k as i32 + 2).map(f64::from).product::<f64>() / t_s.powi(k as i32 + 2);
+            file.check_range(&format!("[spin] derivatives[{k}]"), *d, -bound, bound)?;
+        }
+        file.check_range("[dispersion] measure_pc_cm3", cfg.dispersion.as_ref().map(|d| d.measure_pc_cm3).unwrap_or(0.0), 0.0, 1e5)?;
+        file.check_range("[corrections] ppn_gamma", cfg.corrections.as_ref().and_then(|c| c.ppn_gamma).unwrap_or(1.0), 0.0, 2.0)?;
         for (name, v) in [("ra_deg", s.ra_deg), ("dec_deg", s.dec_deg), ("position_epoch_mjd", s.position_epoch_mjd)] {
             if !v.is_finite() {
                 return Err(invalid(format!("[source] {name} is not finite")));
@@ -207,16 +231,7 @@ impl Pulsar {
         let mut arrivals: Vec<Arrival> = Vec::with_capacity(n);
         let mut index: Vec<usize> = Vec::with_capacity(n);
         for i in 0..n {
-            let reason = match (&input.site[i], input.day[i], input.frac[i], input.freq_mhz[i], input.sigma_us[i]) {
-                (None, ..) => Some(Reject::missing("site")),
-                (_, None, ..) => Some(Reject::missing("arrival_mjd_day")),
-                (_, _, None, ..) => Some(Reject::missing("arrival_mjd_frac")),
-                (_, _, _, None, _) => Some(Reject::missing("freq_mhz")),
-                (_, _, _, _, None) => Some(Reject::missing("sigma_us")),
-                (_, _, _, _, Some(s)) if !(s.is_finite() && s > 0.0) => Some(Reject::new(RejectCode::InvalidValue, format!("sigma_us invalid: {s:?} (must be positive)"))),
-                _ => None,
-            };
-            match reason {
+            match input.row_problem(i) {
                 Some(r) => pre.push((i, r)),
                 None => {
                     arrivals.push(Arrival {
@@ -229,7 +244,7 @@ impl Pulsar {
                 }
             }
         }
-        let computed = self.ctx.process_batch(&arrivals, exec).into_iter().map(|r| r.map_err(|e| Reject::from_error(&e)));
+        let computed = self.ctx.process_batch(&arrivals, exec).into_iter().map(|r| r.map_err(|e| Reject::from_error(&e)).and_then(finite));
         if pre.is_empty() {
             // Every row computed: the results are already in input order.
             return computed.collect();
@@ -377,6 +392,41 @@ pub struct PulsarInput<'a> {
     pub sigma_us: Vec<Option<f64>>,
 }
 
+/// Valid range of `sigma_us`, µs: 1 ps to 10 s (outside it the weights
+/// 1/σ² of the statistics lose meaning or overflow).
+pub const SIGMA_US_RANGE: (f64, f64) = (1e-6, 1e7);
+
+impl PulsarInput<'_> {
+    /// Why row `i` cannot be computed from its values alone (the same check
+    /// in `lapse check` and `lapse run`), if it cannot.
+    pub fn row_problem(&self, i: usize) -> Option<Reject> {
+        let (lo, hi) = SIGMA_US_RANGE;
+        match (&self.site[i], self.day[i], self.frac[i], self.freq_mhz[i], self.sigma_us[i]) {
+            (None, ..) => Some(Reject::missing("site")),
+            (_, None, ..) => Some(Reject::missing("arrival_mjd_day")),
+            (_, _, None, ..) => Some(Reject::missing("arrival_mjd_frac")),
+            (_, _, _, None, _) => Some(Reject::missing("freq_mhz")),
+            (_, _, _, _, None) => Some(Reject::missing("sigma_us")),
+            (_, _, Some(f), ..) if !(0.0..1.0).contains(&f) => Some(Reject::new(RejectCode::FractionOutOfRange, format!("arrival_mjd_frac out of range: {f:?} is not in [0, 1)"))),
+            (_, _, _, Some(f), _) if f.is_nan() || f <= 0.0 => Some(Reject::new(RejectCode::InvalidValue, format!("freq_mhz invalid: {f:?} (must be positive; infinite means no dispersion)"))),
+            (_, _, _, _, Some(s)) if !(s.is_finite() && s > 0.0) => Some(Reject::new(RejectCode::InvalidValue, format!("sigma_us invalid: {s:?} (must be positive)"))),
+            (_, _, _, _, Some(s)) if !(lo..=hi).contains(&s) => Some(Reject::new(RejectCode::InvalidValue, format!("sigma_us invalid: {s:?} outside {lo:e} … {hi:e} µs"))),
+            _ => None,
+        }
+    }
+}
+
+/// A computed row with any non-finite value becomes a reject (never a row
+/// of data).
+fn finite(r: ArrivalResult) -> Result<ArrivalResult, Reject> {
+    let values = [r.clock_s, r.einstein_s, r.roemer_s, r.parallax_s, r.shapiro_s, r.dispersion_s, r.residual_s];
+    if values.iter().chain(&r.shapiro_body_s).all(|v| v.is_finite()) {
+        Ok(r)
+    } else {
+        Err(Reject::new(RejectCode::NotFinite, format!("non-finite result: residual {:?} s, delays {values:?} s (check the model parameters)", r.residual_s)))
+    }
+}
+
 /// Reads and type-checks the input columns (errors name file and column).
 pub fn read_pulsar_input<'a>(df: &'a DataFrame, path: &Path) -> Result<PulsarInput<'a>, PipelineError> {
     let c = Columns { df, path };
@@ -446,6 +496,7 @@ impl Kind for Pulsar {
     fn scan(&self, df: &DataFrame, path: &Path, facts: &mut Facts) -> Result<(), PipelineError> {
         let i = read_pulsar_input(df, path)?;
         facts.add(&i.day, &i.frac, Some(&i.site), None, None);
+        facts.count_problems((0..df.height()).filter_map(|k| i.row_problem(k)));
         Ok(())
     }
 

@@ -63,6 +63,17 @@ pub struct TimescalesPipeline {
     output: OutputCfg,
 }
 
+/// A row's day and fraction, or why they cannot be converted (the same
+/// check in `lapse check` and `lapse run`).
+fn row_problem(day: Option<i64>, frac: Option<f64>) -> Result<(i64, f64), Reject> {
+    let day = day.ok_or_else(|| Reject::new(RejectCode::MissingValue, "null mjd_day: give the MJD day number"))?;
+    let frac = frac.ok_or_else(|| Reject::new(RejectCode::MissingValue, "null mjd_frac: give the fraction of the day"))?;
+    if !frac.is_finite() || !(0.0..1.0).contains(&frac) {
+        return Err(Reject::new(RejectCode::FractionOutOfRange, format!("mjd_frac out of range: {frac:?} is not in [0, 1)")));
+    }
+    Ok((day, frac))
+}
+
 /// One converted row: (day, fraction) per output scale, TT − UTC (s), TDB − TT (s).
 type Converted = (Vec<(i64, f64)>, f64, f64);
 
@@ -100,11 +111,7 @@ impl Timescales {
     }
 
     fn convert_row(&self, day: Option<i64>, frac: Option<f64>) -> Result<Converted, Reject> {
-        let day = day.ok_or_else(|| Reject::new(RejectCode::MissingValue, "null mjd_day: give the MJD day number"))?;
-        let frac = frac.ok_or_else(|| Reject::new(RejectCode::MissingValue, "null mjd_frac: give the fraction of the day"))?;
-        if !frac.is_finite() || !(0.0..1.0).contains(&frac) {
-            return Err(Reject::new(RejectCode::FractionOutOfRange, format!("mjd_frac out of range: {frac:?} is not in [0, 1)")));
-        }
+        let (day, frac) = row_problem(day, frac)?;
         let bad = |e: TimeError| Reject::new(RejectCode::TimeNotConvertible, format!("epoch not convertible: {e}"));
         let ts = &self.ts;
         let e = ts.epoch_from_mjd(self.in_scale, day, frac).map_err(bad)?;
@@ -149,7 +156,9 @@ impl Kind for Timescales {
 
     fn scan(&self, df: &DataFrame, path: &Path, facts: &mut Facts) -> Result<(), PipelineError> {
         let c = Columns { df, path };
-        facts.add(&c.i64("mjd_day")?, &c.f64("mjd_frac")?, None, None, None);
+        let (days, fracs) = (c.i64("mjd_day")?, c.f64("mjd_frac")?);
+        facts.add(&days, &fracs, None, None, None);
+        facts.count_problems(days.iter().zip(&fracs).filter_map(|(d, f)| row_problem(*d, *f).err()));
         Ok(())
     }
 

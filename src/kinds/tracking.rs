@@ -123,6 +123,8 @@ impl Tracking {
         }
         let names = cfg.corrections.shapiro_bodies.clone().unwrap_or_else(|| vec!["sun".to_string()]);
         let shapiro = shapiro_bodies(&names, &constants.ephemeris).map_err(|e| invalid(format!("[corrections] {e}")))?;
+        file.check_range("[corrections] ppn_gamma", cfg.corrections.ppn_gamma.unwrap_or(1.0), 0.0, 2.0)?;
+        file.check_range("[target] transponder_delay_s", cfg.target.transponder_delay_s, 0.0, 1.0)?;
         let ppn_gamma = cfg.corrections.ppn_gamma.unwrap_or(1.0);
         if !ppn_gamma.is_finite() || !cfg.target.transponder_delay_s.is_finite() || cfg.target.transponder_delay_s < 0.0 {
             return Err(invalid("[corrections] ppn_gamma and [target] transponder_delay_s must be finite (delay ≥ 0)".into()));
@@ -155,30 +157,7 @@ impl Tracking {
         let mut rows: Vec<Measurement> = Vec::with_capacity(n);
         let mut index = Vec::with_capacity(n);
         for i in 0..n {
-            let pre = (|| -> Result<Measurement, Reject> {
-                let kind: Observable = input.kind[i].ok_or_else(|| Reject::missing("kind"))?.parse().map_err(|e| Reject::from_error(&e))?;
-                let rx = input.rx_station[i].ok_or_else(|| Reject::missing("rx_station"))?;
-                let day = input.day[i].ok_or_else(|| Reject::missing("rx_mjd_day"))?;
-                let frac = input.frac[i].ok_or_else(|| Reject::missing("rx_mjd_frac"))?;
-                let count_s = input.count_s[i].unwrap_or(f64::NAN);
-                let uplink_hz = input.uplink_hz[i].unwrap_or(f64::NAN);
-                if check_values {
-                    let v = input.value[i].ok_or_else(|| Reject::missing("value"))?;
-                    let s = input.sigma[i].ok_or_else(|| Reject::missing("sigma"))?;
-                    let invalid = |m: String| Reject::new(RejectCode::InvalidValue, m);
-                    if !v.is_finite() {
-                        return Err(invalid(format!("value invalid: {v:?} is not finite")));
-                    }
-                    if !(s.is_finite() && s > 0.0) {
-                        return Err(invalid(format!("sigma invalid: {s:?} (must be positive)")));
-                    }
-                    if matches!(kind, Observable::LightTime2Way | Observable::LightTime1Way) && v <= 0.0 {
-                        return Err(invalid(format!("value invalid: light time {v} s must be positive")));
-                    }
-                }
-                Ok(Measurement { kind, rx_station: rx, tx_station: input.tx_station[i], rx_mjd_day: day, rx_mjd_frac: frac, count_s, uplink_hz })
-            })();
-            match pre {
+            match input.measurement(i, check_values) {
                 Ok(m) => {
                     rows.push(m);
                     index.push(i);
@@ -187,7 +166,7 @@ impl Tracking {
                 Err(e) => out.push(Err(e)),
             }
         }
-        let computed = self.ctx.compute_batch(&rows, exec).into_iter().map(|r| r.map_err(|e| Reject::from_error(&e)));
+        let computed = self.ctx.compute_batch(&rows, exec).into_iter().map(|r| r.map_err(|e| Reject::from_error(&e)).and_then(finite));
         if index.len() == n {
             // Every row computed: the results are already in input order.
             return computed.collect();
@@ -212,6 +191,53 @@ pub struct TrackingInput<'a> {
     pub uplink_hz: Vec<Option<f64>>,
     pub value: Vec<Option<f64>>,
     pub sigma: Vec<Option<f64>>,
+}
+
+/// Valid range of `sigma`: light time 1e-15 … 1e3 s, Doppler 1e-9 … 1e6 Hz
+/// (outside it the weights 1/σ² lose meaning or overflow).
+pub const SIGMA_S_RANGE: (f64, f64) = (1e-15, 1e3);
+/// See [`SIGMA_S_RANGE`].
+pub const SIGMA_HZ_RANGE: (f64, f64) = (1e-9, 1e6);
+
+impl<'a> TrackingInput<'a> {
+    /// Row `i` as a measurement, or why it cannot be computed from its
+    /// values alone (the same check in `lapse check` and `lapse run`);
+    /// `check_values`: also the measured value and its σ.
+    pub fn measurement(&self, i: usize, check_values: bool) -> Result<Measurement<'a>, Reject> {
+        let kind: Observable = self.kind[i].ok_or_else(|| Reject::missing("kind"))?.parse().map_err(|e| Reject::from_error(&e))?;
+        let rx = self.rx_station[i].ok_or_else(|| Reject::missing("rx_station"))?;
+        let day = self.day[i].ok_or_else(|| Reject::missing("rx_mjd_day"))?;
+        let frac = self.frac[i].ok_or_else(|| Reject::missing("rx_mjd_frac"))?;
+        let count_s = self.count_s[i].unwrap_or(f64::NAN);
+        let uplink_hz = self.uplink_hz[i].unwrap_or(f64::NAN);
+        if check_values {
+            let v = self.value[i].ok_or_else(|| Reject::missing("value"))?;
+            let s = self.sigma[i].ok_or_else(|| Reject::missing("sigma"))?;
+            let invalid = |m: String| Reject::new(RejectCode::InvalidValue, m);
+            if !v.is_finite() {
+                return Err(invalid(format!("value invalid: {v:?} is not finite")));
+            }
+            if !(s.is_finite() && s > 0.0) {
+                return Err(invalid(format!("sigma invalid: {s:?} (must be positive)")));
+            }
+            let light_time = matches!(kind, Observable::LightTime2Way | Observable::LightTime1Way);
+            let ((lo, hi), unit) = if light_time { (SIGMA_S_RANGE, "s") } else { (SIGMA_HZ_RANGE, "Hz") };
+            if !(lo..=hi).contains(&s) {
+                return Err(invalid(format!("sigma invalid: {s:?} outside {lo:e} … {hi:e} {unit}")));
+            }
+            if light_time && v <= 0.0 {
+                return Err(invalid(format!("value invalid: light time {v} s must be positive")));
+            }
+        }
+        Ok(Measurement { kind, rx_station: rx, tx_station: self.tx_station[i], rx_mjd_day: day, rx_mjd_frac: frac, count_s, uplink_hz })
+    }
+}
+
+/// A computed row with any non-finite value becomes a reject (never a row
+/// of data).
+fn finite(r: TrackingResult) -> Result<TrackingResult, Reject> {
+    let values = [r.computed, r.light_time_down_s, r.shapiro_down_s, r.clock_rx_s, r.troposphere_s, r.light_time_up_s.unwrap_or(0.0), r.shapiro_up_s.unwrap_or(0.0), r.clock_tx_s.unwrap_or(0.0)];
+    if values.iter().all(|v| v.is_finite()) { Ok(r) } else { Err(Reject::new(RejectCode::NotFinite, format!("non-finite result: {values:?}"))) }
 }
 
 /// Reads and type-checks the input columns.
@@ -265,6 +291,7 @@ impl Kind for Tracking {
     fn scan(&self, df: &DataFrame, path: &Path, facts: &mut Facts) -> Result<(), PipelineError> {
         let i = read_tracking_input(df, path)?;
         facts.add(&i.day, &i.frac, Some(&i.rx_station), Some(&i.tx_station), Some(&i.kind));
+        facts.count_problems((0..df.height()).filter_map(|k| i.measurement(k, true).err()));
         Ok(())
     }
 

@@ -46,6 +46,12 @@ impl PipelineFile {
         PipelineError::Invalid { path: self.path.clone(), message: message.into() }
     }
 
+    /// Checks a pipeline number against its documented range `lo ..= hi`
+    /// (non-finite values fail too); `key` names it as `[table] key`.
+    pub fn check_range(&self, key: &str, value: f64, lo: f64, hi: f64) -> Result<f64, PipelineError> {
+        if value.is_finite() && (lo..=hi).contains(&value) { Ok(value) } else { Err(self.invalid(format!("{key} = {value:?} is outside its valid range {lo} … {hi}"))) }
+    }
+
     /// The pipeline's `[input] path`, resolved against its folder (every
     /// kind has one); `None` when the file has none.
     pub fn input_path(&self) -> Option<PathBuf> {

@@ -17,6 +17,7 @@ use super::kind::Kind;
 use super::table::{IdChecker, ids, parquet_rows, read_parquet_slice};
 use crate::earth::{EarthModel, StationCatalog};
 use crate::ephemeris::{Ephemeris, TdbSeconds, body_name};
+use crate::reject::{Reject, RejectCode};
 use crate::time::{ExpiryPolicy, LeapSecondTable};
 
 /// Severity of a finding.
@@ -100,6 +101,8 @@ pub struct Facts {
     pub codes2: BTreeMap<String, (usize, i64, i64)>,
     /// Distinct values of a category column (tracking observables).
     pub kinds: BTreeSet<String>,
+    /// Rows whose own values would be rejected, by code.
+    pub problems: BTreeMap<RejectCode, usize>,
 }
 
 impl Facts {
@@ -160,6 +163,13 @@ impl Facts {
         }
     }
 
+    /// Counts rows that would be rejected for their own values.
+    pub fn count_problems(&mut self, rejects: impl Iterator<Item = Reject>) {
+        for r in rejects {
+            *self.problems.entry(r.code).or_default() += 1;
+        }
+    }
+
     /// The span of the rows seen, if any.
     pub fn span(&self) -> Option<Span> {
         Some(Span { lo: *self.days.keys().next()?, hi: *self.days.keys().next_back()?, first_mjd: self.first_mjd, last_mjd: self.last_mjd, rows: self.rows })
@@ -198,6 +208,11 @@ pub fn check_partition(kind: &dyn Kind, report: &mut Preflight, path: &Path, fac
         None => report.add(Level::Note, format!("{}: no rows", path.display())),
         Some(s) => {
             report.add(Level::Ok, format!("{}: {} rows, MJD {} … {}", path.display(), s.rows, s.lo, s.hi));
+            if !facts.problems.is_empty() {
+                let n: usize = facts.problems.values().sum();
+                let list: Vec<String> = facts.problems.iter().map(|(c, k)| format!("{c} ({k})")).collect();
+                report.add(Level::Problem, format!("{}: {n} rows would be rejected for their values: {}", path.display(), list.join(", ")));
+            }
             kind.check(report, facts);
         }
     }
