@@ -225,6 +225,21 @@ pub fn tune_allocator() {
 #[cfg(not(all(target_os = "linux", target_env = "gnu")))]
 pub fn tune_allocator() {}
 
+/// An error and its causes on one line, each cause once: lapse's errors
+/// already name their cause in their message, so a cause whose text the
+/// message holds is not repeated.
+pub fn render_error(e: &anyhow::Error) -> String {
+    let mut msg = e.to_string();
+    for cause in e.chain().skip(1) {
+        let c = cause.to_string();
+        if !msg.contains(&c) {
+            msg.push_str(": ");
+            msg.push_str(&c);
+        }
+    }
+    msg
+}
+
 /// Panics inside guarded readers of outside files (and polars' own worker
 /// threads) are turned into errors by the library: keep them off the
 /// terminal. Any other panic is a bug and is reported as usual.

@@ -21,7 +21,7 @@ fn main() -> ExitCode {
         // A closed stdout (`lapse time … | head`) is not an error.
         Err(e) if e.downcast_ref::<std::io::Error>().is_some_and(|e| e.kind() == std::io::ErrorKind::BrokenPipe) => ExitCode::SUCCESS,
         Err(e) => {
-            eprintln!("lapse: error: {e:#}");
+            eprintln!("lapse: error: {}", cli::render_error(&e));
             ExitCode::from(2)
         }
     }

@@ -103,3 +103,98 @@ fn item03_float32_time_columns_are_refused() {
         assert!(text(&o).contains("'arrival_mjd_frac'") && text(&o).contains("float32"), "{}", text(&o));
     }
 }
+
+/// Item 4: damaged but plausible Earth data is refused: an EOP file whose
+/// last line is cut mid-field, a leap-second file missing its 2017 line, and
+/// (library level) a leap-second table that disagrees with the EOP file's
+/// UT1 − UTC jumps.
+#[test]
+fn item04_damaged_earth_data_is_refused() {
+    let d = tmpdir("h04");
+    let mut df = demo_rows(5);
+    write(&d.join("in.parquet"), &mut df);
+    let (i, o) = (d.join("in.parquet").display().to_string(), d.join("out.parquet").display().to_string());
+    // EOP cut inside the UT1 − UTC field (columns 59–68) of its last valued line.
+    let eop = std::fs::read_to_string(root().join("data/finals2000A.all")).unwrap();
+    let lines: Vec<&str> = eop.lines().collect();
+    let k = lines.iter().rposition(|l| l.len() >= 68 && !l[58..68].trim().is_empty()).unwrap();
+    let mut cut = lines[..k].join("\n");
+    cut.push('\n');
+    cut.push_str(&lines[k][..63]);
+    std::fs::write(d.join("cut.all"), cut).unwrap();
+    let p = pulsar_pipeline(&d, &i, &o, |t| t.replace(&format!("{}/data/finals2000A.all", root().display()), &d.join("cut.all").display().to_string()));
+    let r = lapse(&["check", p.to_str().unwrap()]);
+    assert_eq!(r.status.code(), Some(2), "{}", text(&r));
+    assert!(text(&r).contains(&format!("line {}", k + 1)) && text(&r).contains("columns 59–68"), "{}", text(&r));
+    // A leap-second file without its 2017 line.
+    let leap = std::fs::read_to_string(root().join("data/Leap_Second.dat")).unwrap();
+    let no2017: String = leap.lines().filter(|l| !l.contains(" 2017 ")).map(|l| format!("{l}\n")).collect();
+    assert!(no2017.len() < leap.len());
+    std::fs::write(d.join("leap.dat"), &no2017).unwrap();
+    let p = pulsar_pipeline(&d, &i, &o, |t| t.replace(&format!("{}/data/Leap_Second.dat", root().display()), &d.join("leap.dat").display().to_string()));
+    for cmd in ["check", "run"] {
+        let r = lapse(&[cmd, p.to_str().unwrap()]);
+        assert_eq!(r.status.code(), Some(2), "{cmd}: {}", text(&r));
+        assert!(text(&r).contains("disagrees with the built-in table") && text(&r).contains("57754"), "{cmd}: {}", text(&r));
+    }
+    let r = lapse(&["time", "2018-01-01T00:00:00", "--leap-file", d.join("leap.dat").to_str().unwrap()]);
+    assert_eq!(r.status.code(), Some(2), "{}", text(&r));
+    // The EOP cross-check alone: UT1 − UTC jumps on MJD 57754 without a step.
+    let table = lapse::time::LeapSecondTable::parse(&no2017, Path::new("leap.dat")).unwrap();
+    let eop = lapse::earth::EopTable::from_file(&root().join("data/finals2000A.all")).unwrap();
+    let e = eop.check_leap_seconds(&table).unwrap_err().to_string();
+    assert!(e.contains("MJD 57754") && e.contains("disagree"), "{e}");
+    assert!(eop.check_leap_seconds(&lapse::time::LeapSecondTable::builtin()).is_ok());
+}
+
+/// Item 5: `lapse time` refuses epochs outside each model's stated range.
+#[test]
+fn item05_epochs_outside_the_models_are_refused() {
+    for args in [vec!["time", "mjd:999999999999", "--to", "tdb"], vec!["time", "--extend-leaps", "mjd:1000000000", "--to", "tdb,tt"], vec!["time", "--from", "tt", "mjd:130000", "--to", "tdb"]] {
+        let o = lapse(&args);
+        assert_eq!(o.status.code(), Some(2), "{args:?}: {}", text(&o));
+        assert!(text(&o).contains("outside") || text(&o).contains("leap-second window"), "{args:?}: {}", text(&o));
+        assert!(!String::from_utf8_lossy(&o.stdout).contains("tdb "), "{args:?}: nothing printed for the refused epoch");
+    }
+    // Inside the range it still works.
+    let o = lapse(&["time", "--from", "tt", "mjd:120000", "--to", "tdb"]);
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+}
+
+/// Item 12: a run that rejects rows above `--max-rejected-fraction` (default
+/// 0.1; all rows always) exits 3; `lapse check` exits 1 when rows would be
+/// rejected for their values, for every kind, and takes `--input`.
+#[test]
+fn item12_exit_codes_tell_a_scheduler_about_rejects() {
+    let d = tmpdir("h12");
+    let mut df = demo_rows(10);
+    let s: Vec<f64> = vec![-1.0; 10];
+    df.with_column(Column::new("sigma_us".into(), s)).unwrap();
+    write(&d.join("bad.parquet"), &mut df);
+    let mut good = demo_rows(10);
+    write(&d.join("good.parquet"), &mut good);
+    let p = pulsar_pipeline(&d, &d.join("bad.parquet").display().to_string(), &d.join("out.parquet").display().to_string(), |t| t);
+    let o = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(3), "{}", text(&o));
+    assert!(text(&o).contains("10 of 10 rows rejected"), "{}", text(&o));
+    assert!(d.join("out.rejects.parquet").exists(), "everything is still written");
+    let o = lapse(&["run", p.to_str().unwrap(), "--no-plots", "--max-rejected-fraction", "1"]);
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+    let o = lapse(&["check", p.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(1), "{}", text(&o));
+    assert!(text(&o).contains("10 rows would be rejected") && text(&o).contains("invalid_value (10)"), "{}", text(&o));
+    let o = lapse(&["check", p.to_str().unwrap(), "--input", d.join("good.parquet").to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+    // Timescales: check reads the input (a missing column is unusable, a bad fraction a problem).
+    let mut t = df!("obs_id" => ["a", "b"], "mjd_day" => [60_000i64, 60_001], "mjd_frac" => [0.5, 1.5]).unwrap();
+    write(&d.join("epochs.parquet"), &mut t);
+    std::fs::write(d.join("ts.toml"), format!("kind = \"timescales\"\n[input]\npath = \"{}\"\n[output]\npath = \"{}\"\n", d.join("epochs.parquet").display(), d.join("ts.parquet").display())).unwrap();
+    let o = lapse(&["check", d.join("ts.toml").to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(1), "{}", text(&o));
+    assert!(text(&o).contains("fraction_out_of_range (1)"), "{}", text(&o));
+    let mut t = df!("obs_id" => ["a"], "mjd_day" => [60_000i64]).unwrap();
+    write(&d.join("epochs.parquet"), &mut t);
+    let o = lapse(&["check", d.join("ts.toml").to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(text(&o).contains("missing column 'mjd_frac'"), "{}", text(&o));
+}

@@ -52,12 +52,12 @@ pub enum TimeCommandError {
     Ut1NeedsEop,
     #[error("no epochs given (arguments or --file)")]
     NoEpochs,
-    #[error("{at}: {source}")]
-    At { at: String, source: Box<TimeCommandError> },
+    #[error("{at}: {error}")]
+    At { at: String, error: Box<TimeCommandError> },
 }
 
 fn at(where_: &str) -> impl Fn(TimeCommandError) -> TimeCommandError + '_ {
-    move |e| TimeCommandError::At { at: where_.to_string(), source: Box::new(e) }
+    move |e| TimeCommandError::At { at: where_.to_string(), error: Box::new(e) }
 }
 
 /// The conversion table of every requested epoch, as printed.
@@ -72,16 +72,22 @@ pub fn convert(req: &TimeRequest) -> Result<String, TimeCommandError> {
         return Err(TimeCommandError::Ut1NeedsEop);
     }
     let mut leaps = match &req.leap_file {
-        Some(p) => LeapSecondTable::from_file(p)?,
+        Some(p) => {
+            let t = LeapSecondTable::from_file(p)?;
+            t.check_against_builtin()?;
+            t
+        }
         None => LeapSecondTable::builtin(),
     };
     if req.extend_leaps {
         leaps = leaps.with_policy(ExpiryPolicy::ExtendLastOffset);
     }
+    let leaps_for_check = leaps.clone();
     let mut ts = TimeScales::new(leaps);
     let (mut earth, mut eop_table) = (None, None);
     if let Some(path) = &req.eop {
         let table = Arc::new(EopTable::from_file(path)?);
+        table.check_leap_seconds(&leaps_for_check)?;
         ts = ts.with_ut1(table.clone());
         eop_table = Some(table.clone());
         if let Some((code, stations, kernel)) = &req.site {

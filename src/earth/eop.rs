@@ -36,6 +36,8 @@ pub enum EopError {
     OutOfRange { path: PathBuf, mjd: f64, first: i64, last: i64 },
     #[error("EOP interpolation needs a UTC epoch, got {scale}")]
     WrongScale { scale: String },
+    #[error("{path}: UT1 − UTC jumps by {eop_step} s on MJD {mjd}, but the leap-second table ({table}) has a step of {table_step} s there: the two disagree (a damaged or outdated leap-second file?)")]
+    LeapMismatch { path: PathBuf, mjd: i64, eop_step: i64, table_step: i64, table: String },
     #[error("EOP at MJD {mjd}: {source}")]
     Time { mjd: i64, source: crate::time::TimeError },
 }
@@ -94,6 +96,15 @@ fn field(line: &str, a: usize, b: usize) -> &str {
     line.get(a - 1..b.min(line.len())).unwrap_or("").trim()
 }
 
+/// Whether a fixed-width line ends inside columns `a ..= b` with text in
+/// them: a line cut mid-field, whose digits would read as a wrong value.
+fn cut_inside(line: &str, a: usize, b: usize) -> bool {
+    line.len() >= a && line.len() < b && !field(line, a, b).is_empty()
+}
+
+/// The finals2000A fields lapse reads (1-based inclusive columns).
+const FINALS_FIELDS: [(usize, usize); 12] = [(8, 15), (17, 17), (19, 27), (38, 46), (58, 58), (59, 68), (98, 106), (117, 125), (135, 144), (145, 154), (155, 165), (166, 175)];
+
 impl EopTable {
     /// Reads an EOP file, recognising its layout from its content.
     pub fn from_file(path: &Path) -> Result<Self, EopError> {
@@ -124,6 +135,33 @@ impl EopTable {
     /// First MJD whose values are predictions, if any.
     pub fn first_predicted_mjd(&self) -> Option<i64> {
         self.rows.iter().find(|r| r.predicted).map(|r| r.mjd)
+    }
+
+    /// Checks the leap-second table against this table's UT1 − UTC: a jump
+    /// of about one second between consecutive days must be a leap second of
+    /// the table on the later day, and every leap second inside the span
+    /// must show as such a jump (a table missing a line shifts every epoch
+    /// after it by a second).
+    pub fn check_leap_seconds(&self, leaps: &LeapSecondTable) -> Result<(), EopError> {
+        let step_at = |mjd: i64| leaps.steps().windows(2).find(|w| w[1].mjd == mjd).map(|w| w[1].tai_minus_utc_s - w[0].tai_minus_utc_s);
+        for w in self.rows.windows(2) {
+            if w[1].mjd != w[0].mjd + 1 {
+                continue;
+            }
+            let jump_s = w[1].ut1_minus_utc_s - w[0].ut1_minus_utc_s;
+            let eop_step = if jump_s > 0.5 {
+                1
+            } else if jump_s < -0.5 {
+                -1
+            } else {
+                0
+            };
+            let table_step = step_at(w[1].mjd).unwrap_or(0);
+            if eop_step != table_step {
+                return Err(EopError::LeapMismatch { path: self.path.clone(), mjd: w[1].mjd, eop_step, table_step, table: leaps.source_name().to_string() });
+            }
+        }
+        Ok(())
     }
 
     /// The file's path.
@@ -236,6 +274,11 @@ fn parse_finals(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
         if line.len() < 15 {
             return Err(EopError::Format { path: path.into(), line: lineno, reason: format!("line of {} characters is too short for the finals2000A layout", line.len()) });
         }
+        if let Some((a, b)) = FINALS_FIELDS.iter().chain(&[(176, 185)]).find(|(a, b)| cut_inside(line, *a, *b)) {
+            return Err(EopError::Format {
+                path: path.into(), line: lineno, reason: format!("line ends inside columns {a}–{b} ({} characters): a cut line would read as a wrong value", line.len())
+            });
+        }
         let mjd = whole_mjd(path, lineno, field(line, 8, 15))?;
         let (xs, ys, us) = (field(line, 19, 27), field(line, 38, 46), field(line, 59, 68));
         if xs.is_empty() || ys.is_empty() || us.is_empty() {
@@ -290,6 +333,7 @@ fn parse_finals(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
 /// y_p (″), UT1 − UTC (s), dX (″), dY (″), … separated by blanks.
 fn parse_c04(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
     let mut rows = Vec::new();
+    let mut first_fields: Option<usize> = None;
     for (i, line) in text.lines().enumerate() {
         let lineno = i + 1;
         let l = line.trim();
@@ -297,6 +341,13 @@ fn parse_c04(text: &str, path: &Path) -> Result<Vec<EopRow>, EopError> {
             continue;
         }
         let f: Vec<&str> = l.split_whitespace().collect();
+        // Every row of a C04 file has the same fields: fewer means a cut line.
+        if let Some(n0) = first_fields
+            && f.len() != n0
+        {
+            return Err(EopError::Format { path: path.into(), line: lineno, reason: format!("{} fields where the file's rows have {n0}: a cut or damaged line", f.len()) });
+        }
+        first_fields.get_or_insert(f.len());
         if f.len() < 10 {
             return Err(EopError::Format { path: path.into(), line: lineno, reason: format!("{} fields, expected at least 10 (C04 layout)", f.len()) });
         }

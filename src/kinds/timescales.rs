@@ -101,7 +101,7 @@ impl Timescales {
         }
         let leap_path = cfg.time.leap_seconds.as_ref().map(|p| file.resolve(p));
         let mut leaps = match &leap_path {
-            Some(p) => LeapSecondTable::from_file(p).map_err(|e| PipelineError::Time { context: "[time] leap_seconds".into(), source: e })?,
+            Some(p) => LeapSecondTable::from_file(p).and_then(|t| t.check_against_builtin().map(|_| t)).map_err(|e| PipelineError::Time { context: "[time] leap_seconds".into(), source: e })?,
             None => LeapSecondTable::builtin(),
         };
         if cfg.time.extend_leap_table {

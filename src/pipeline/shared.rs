@@ -81,6 +81,7 @@ pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg
     let (ephemeris, eop) = rayon::join(|| timed("kernels", || Ephemeris::load(&kernels)), || timed("EOP", || EopTable::from_file(&eop_path)));
     let ephemeris = ephemeris.map_err(|e| invalid(format!("[ephemeris] {e}")))?;
     let eop = eop.map_err(|e| invalid(format!("[earth] {e}")))?;
+    eop.check_leap_seconds(time.leap_seconds()).map_err(|e| invalid(format!("[earth] {e}")))?;
     for (k, loaded) in kernels.iter().zip(ephemeris.kernels()) {
         inputs.push(("kernel".into(), k.clone(), kernel_coverage(loaded)));
     }
@@ -128,7 +129,7 @@ pub fn load_time(file: &PipelineFile, leap: Option<&Path>) -> Result<(TimeScales
     match leap {
         Some(p) => {
             let p = file.resolve(p);
-            let t = LeapSecondTable::from_file(&p).map_err(|source| PipelineError::Time { context: "[earth] leap_seconds".into(), source })?;
+            let t = LeapSecondTable::from_file(&p).and_then(|t| t.check_against_builtin().map(|_| t)).map_err(|source| PipelineError::Time { context: "[earth] leap_seconds".into(), source })?;
             Ok((TimeScales::new(t), Some(p)))
         }
         None => Ok((TimeScales::builtin(), None)),

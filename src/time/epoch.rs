@@ -156,6 +156,14 @@ impl fmt::Display for Epoch {
     }
 }
 
+/// TT span (MJD) over which conversions to or from TDB and TCB are made:
+/// 1600-01-01 to 2200-01-01, the span over which the Fairhead & Bretagnon
+/// (1990, A&A 229, 240) series is stated to hold its accuracy (from memory).
+pub const TDB_MODEL_MJD: (i64, i64) = (-94_553, 124_593);
+/// TT span (MJD) of every other conversion: years 1 to 9999 of the
+/// proleptic Gregorian calendar the epochs are printed in.
+pub const CALENDAR_MJD: (i64, i64) = (-678_575, 2_973_484);
+
 /// A source of UT1 − TAI (Earth-orientation data), so that UT1 can join
 /// the conversion chain without the time module depending on `earth`.
 pub trait Ut1Source: Send + Sync + std::fmt::Debug {
@@ -406,6 +414,16 @@ impl TimeScales {
             return Ok(e);
         }
         let tt = self.tt_fs(&e, observer_s)?;
+        // Refused outside the models' stated ranges (documented in the README).
+        let tt_mjd = tt.div_euclid(crate::time::femto::FS_PER_DAY);
+        let (lo, hi, what) = if matches!(e.scale, TimeScale::Tdb | TimeScale::Tcb) || matches!(to, TimeScale::Tdb | TimeScale::Tcb) {
+            (TDB_MODEL_MJD.0, TDB_MODEL_MJD.1, "TDB − TT series (1600–2200)")
+        } else {
+            (CALENDAR_MJD.0, CALENDAR_MJD.1, "calendar (years 1–9999)")
+        };
+        if !(lo as i128..hi as i128).contains(&tt_mjd) {
+            return Err(TimeError::OutOfRange { what: format!("TT MJD {tt_mjd} is outside the range of the {what}, MJD {lo} … {hi}") });
+        }
         match to {
             TimeScale::Tt => Epoch::from_uniform_fs(to, tt),
             TimeScale::Tai => Epoch::from_uniform_fs(to, tt - TT_MINUS_TAI_FS),

@@ -151,6 +151,31 @@ impl LeapSecondTable {
         Ok(Self { steps, expires_mjd, window_mjd: next_leap_window(expires_mjd), policy: ExpiryPolicy::Refuse, source_name: path.display().to_string() })
     }
 
+    /// Checks a table read from a file against the built-in one: over the
+    /// span both know (up to the earlier expiry) they must have the same
+    /// steps. A newer file may add steps past the built-in table's expiry.
+    pub fn check_against_builtin(&self) -> Result<(), TimeError> {
+        let builtin = Self::builtin();
+        let until = self.expires_mjd.min(builtin.expires_mjd);
+        let known = |t: &Self| t.steps.iter().filter(|s| s.mjd < until).copied().collect::<Vec<_>>();
+        let (mine, theirs) = (known(self), known(&builtin));
+        if let Some(k) = (0..mine.len().max(theirs.len())).find(|k| mine.get(*k) != theirs.get(*k)) {
+            let show = |s: Option<&LeapStep>| s.map(|s| format!("MJD {} (TAI − UTC {} s)", s.mjd, s.tai_minus_utc_s)).unwrap_or_else(|| "no step".into());
+            return Err(TimeError::LeapFile {
+                path: self.source_name.clone().into(),
+                line: 0,
+                reason: format!(
+                    "disagrees with the built-in table ({}) before MJD {until}: step {} is {} here, {} there (a damaged or edited file?)",
+                    builtin.source_name,
+                    k + 1,
+                    show(mine.get(k)),
+                    show(theirs.get(k))
+                ),
+            });
+        }
+        Ok(())
+    }
+
     /// The same table with another expiry policy.
     pub fn with_policy(mut self, policy: ExpiryPolicy) -> Self {
         self.policy = policy;
