@@ -119,6 +119,9 @@ pub struct RunArgs {
     /// (0 … 1; the run still writes everything).
     #[arg(long, default_value_t = lapse::commands::run::DEFAULT_MAX_REJECTED_FRACTION)]
     pub max_rejected_fraction: f64,
+    /// Redo partitions whose outputs are up to date.
+    #[arg(long)]
+    pub force: bool,
 }
 
 /// Arguments of `lapse time`.
@@ -197,7 +200,7 @@ pub fn run_options(args: &RunArgs, quiet: bool) -> Result<(lapse::pipeline::RunO
     }
     let counter = Arc::new(AtomicUsize::new(0));
     let exec = lapse::parallel::Exec { chunk_rows: args.chunk_rows, progress: Some(counter.clone()) };
-    let opts = lapse::pipeline::RunOptions { input: args.input.clone(), output: args.output.clone(), exec, plots: !args.no_plots };
+    let opts = lapse::pipeline::RunOptions { input: args.input.clone(), output: args.output.clone(), exec, plots: !args.no_plots, force: args.force };
     let progress = (!quiet).then(|| lapse::commands::progress::Progress::start(lapse::pipeline::input_rows(&args.pipeline, args.input.as_deref()).unwrap_or(0), counter));
     Ok((opts, progress))
 }

@@ -198,3 +198,119 @@ fn item12_exit_codes_tell_a_scheduler_about_rejects() {
     assert_eq!(o.status.code(), Some(2), "{}", text(&o));
     assert!(text(&o).contains("missing column 'mjd_frac'"), "{}", text(&o));
 }
+
+/// Two small partitions of demo rows in `dir/in`.
+fn two_partitions(dir: &Path) {
+    std::fs::create_dir_all(dir.join("in")).unwrap();
+    let all = demo_rows(40);
+    for k in 0..2 {
+        let mut part = all.slice(20 * k as i64, 20);
+        write(&dir.join("in").join(format!("night-{k:02}.parquet")), &mut part);
+    }
+}
+
+fn sha(p: &Path) -> String {
+    lapse::pipeline::sha256_hex(&std::fs::read(p).unwrap())
+}
+
+/// Item 6: an output that is the input (file, or the partition folder) is
+/// refused before anything is read or written.
+#[test]
+fn item06_output_equal_to_input_is_refused() {
+    let d = tmpdir("h06");
+    let mut df = demo_rows(10);
+    let input = d.join("in.parquet");
+    write(&input, &mut df);
+    let before = sha(&input);
+    let p = pulsar_pipeline(&d, &input.display().to_string(), &d.join("out.parquet").display().to_string(), |t| t);
+    // The same file by another spelling of its path.
+    let alias = d.join(".").join("in.parquet");
+    let o = lapse(&["run", p.to_str().unwrap(), "--output", alias.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(text(&o).contains("would overwrite the input"), "{}", text(&o));
+    assert_eq!(sha(&input), before, "input untouched");
+    two_partitions(&d);
+    let p = pulsar_pipeline(&d, &d.join("in").display().to_string(), &d.join("in").display().to_string(), |t| t);
+    let o = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(text(&o).contains("output folder is the input folder"), "{}", text(&o));
+    assert_eq!(std::fs::read_dir(d.join("in")).unwrap().count(), 2, "nothing written into the input folder");
+}
+
+/// Item 7: a second run on the same output fails at once with a clear
+/// message (advisory lock); temporary names are unique per run (unit test
+/// `pipeline::commit`).
+#[test]
+fn item07_a_second_writer_of_the_same_output_fails_fast() {
+    let d = tmpdir("h07");
+    let mut df = demo_rows(10);
+    write(&d.join("in.parquet"), &mut df);
+    let out = d.join("out.parquet");
+    let p = pulsar_pipeline(&d, &d.join("in.parquet").display().to_string(), &out.display().to_string(), |t| t);
+    // Another writer holds the lock.
+    let lock = std::fs::File::options().create(true).truncate(false).write(true).open(d.join(".out.parquet.lock")).unwrap();
+    lock.try_lock().unwrap();
+    let t0 = std::time::Instant::now();
+    let o = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(text(&o).contains("another lapse run is writing this output"), "{}", text(&o));
+    assert!(t0.elapsed().as_secs() < 30, "fails fast");
+    assert!(!out.exists());
+    drop(lock);
+    let o = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+}
+
+/// Items 8 and 9: the output, its rejects table and its plots are one unit —
+/// a rejects table or a plot from another run (a kill between renames, a
+/// truncated plot) makes the partition out of date; an output path that is
+/// a folder is refused before computing.
+#[test]
+fn item08_09_output_rejects_and_plots_are_committed_as_a_unit() {
+    let d = tmpdir("h08");
+    two_partitions(&d);
+    let run = |out: &str| {
+        let p = pulsar_pipeline(&d, &d.join("in").display().to_string(), &d.join(out).display().to_string(), |t| t);
+        let o = lapse(&["run", p.to_str().unwrap()]);
+        assert_eq!(o.status.code(), Some(0), "{}", text(&o));
+        String::from_utf8_lossy(&o.stdout).into_owned()
+    };
+    run("a");
+    run("b");
+    assert!(run("a").contains("partitions 0 processed, 2 up to date"));
+    // The state a kill between the rejects rename and the output rename leaves.
+    std::fs::copy(d.join("b/night-00.rejects.parquet"), d.join("a/night-00.rejects.parquet")).unwrap();
+    assert!(run("a").contains("partitions 1 processed, 1 up to date"), "a foreign rejects table is redone");
+    // A truncated plot.
+    let png = d.join("a/night-01.residuals.png");
+    let bytes = std::fs::read(&png).unwrap();
+    std::fs::write(&png, &bytes[..bytes.len() / 2]).unwrap();
+    assert!(run("a").contains("partitions 1 processed, 1 up to date"), "a damaged plot is redone");
+    assert_eq!(std::fs::read(&png).unwrap(), bytes);
+    assert!(std::fs::read_dir(d.join("a")).unwrap().flatten().all(|e| !e.file_name().to_string_lossy().contains(".partial")), "no staged file remains");
+    // An output path that is an existing folder.
+    std::fs::create_dir_all(d.join("taken.parquet")).unwrap();
+    let mut df = demo_rows(5);
+    write(&d.join("one.parquet"), &mut df);
+    let p = pulsar_pipeline(&d, &d.join("one.parquet").display().to_string(), &d.join("taken.parquet").display().to_string(), |t| t);
+    let o = lapse(&["run", p.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(text(&o).contains("output path is a folder"), "{}", text(&o));
+    assert_eq!(std::fs::read_dir(d.join("taken.parquet")).unwrap().count(), 0);
+    assert!(!d.join("taken.rejects.parquet").exists());
+}
+
+/// Item 10: two partitions with one stem are refused, naming both.
+#[test]
+fn item10_partitions_with_the_same_stem_are_refused() {
+    let d = tmpdir("h10");
+    std::fs::create_dir_all(d.join("in")).unwrap();
+    let mut df = demo_rows(5);
+    write(&d.join("in/night1.parquet"), &mut df);
+    write(&d.join("in/night1.pq"), &mut df);
+    let p = pulsar_pipeline(&d, &d.join("in/night1.*").display().to_string(), &d.join("out").display().to_string(), |t| t);
+    let o = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(text(&o).contains("same stem") && text(&o).contains("night1.parquet") && text(&o).contains("night1.pq"), "{}", text(&o));
+    assert!(!d.join("out/night1.parquet").exists());
+}

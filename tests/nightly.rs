@@ -147,13 +147,15 @@ fn a_run_leaves_other_writers_partial_files_alone() {
     for f in neighbour.iter().chain(own.iter()) {
         std::fs::write(f, b"in progress").unwrap();
     }
+    // Old-style names (x.parquet.partial) of this output are stale too.
+    std::fs::write(out.join("night-00.parquet.partial"), b"old").unwrap();
     let p = pulsar_pipeline(&d, &d.join("in/night-00.parquet").display().to_string(), &out.join("night-00.parquet").display().to_string());
     let o = lapse(&["run", "--max-rejected-fraction", "1", p.to_str().unwrap(), "-q", "--no-plots"]);
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     for f in &neighbour {
         assert_eq!(std::fs::read(f).unwrap(), b"in progress", "{} was touched", f.display());
     }
-    for f in &own {
+    for f in own.iter().chain([&out.join("night-00.parquet.partial")]) {
         assert!(!f.exists(), "stale {} left behind", f.display());
     }
     assert!(out.join("night-00.parquet").exists() && out.join("night-00.rejects.parquet").exists());
@@ -197,7 +199,11 @@ fn killed_run_resumes_to_the_same_outputs() {
     let started = std::time::Instant::now();
     loop {
         let done = std::fs::read_dir(d.join("out"))
-            .map(|r| r.flatten().filter(|e| e.path().extension().is_some_and(|x| x == "parquet") && !e.path().to_string_lossy().contains("rejects")).count())
+            .map(|r| {
+                r.flatten()
+                    .filter(|e| e.path().extension().is_some_and(|x| x == "parquet") && !e.path().to_string_lossy().contains("rejects") && !e.file_name().to_string_lossy().starts_with('.'))
+                    .count()
+            })
             .unwrap_or(0);
         if done >= 1 || started.elapsed().as_secs() > 60 {
             break;
@@ -206,12 +212,16 @@ fn killed_run_resumes_to_the_same_outputs() {
     }
     child.kill().unwrap();
     let _ = child.wait();
-    let finished_before =
-        std::fs::read_dir(d.join("out")).unwrap().flatten().filter(|e| e.path().extension().is_some_and(|x| x == "parquet") && !e.path().to_string_lossy().contains("rejects")).count();
+    let finished_before = std::fs::read_dir(d.join("out"))
+        .unwrap()
+        .flatten()
+        .filter(|e| e.path().extension().is_some_and(|x| x == "parquet") && !e.path().to_string_lossy().contains("rejects") && !e.file_name().to_string_lossy().starts_with('.'))
+        .count();
     assert!(finished_before < 8, "the run finished before it could be killed; make the partitions larger");
-    // Every output present after the kill is complete and readable.
+    // Every output present after the kill is complete and readable
+    // (hidden staged files of the killed run are not outputs).
     for e in std::fs::read_dir(d.join("out")).unwrap().flatten() {
-        if e.path().extension().is_some_and(|x| x == "parquet") {
+        if e.path().extension().is_some_and(|x| x == "parquet") && !e.file_name().to_string_lossy().starts_with('.') {
             assert!(ParquetReader::new(std::fs::File::open(e.path()).unwrap()).finish().is_ok(), "{}", e.path().display());
         }
     }
@@ -229,12 +239,12 @@ fn killed_run_resumes_to_the_same_outputs() {
             lapse::io::read_parquet_metadata(p)
                 .unwrap()
                 .into_iter()
-                .filter(|(k, _)| k != "lapse.run.started_utc" && !k.ends_with(".path") && k != "lapse.pipeline.text" && k != "lapse.pipeline.sha256")
+                .filter(|(k, _)| k != "lapse.run.started_utc" && k != "lapse.run.id" && !k.ends_with(".path") && k != "lapse.pipeline.text" && k != "lapse.pipeline.sha256")
                 .collect()
         };
         assert_eq!(md(&d.join("out").join(&name)), md(&d.join("ref").join(&name)));
     }
-    assert!(std::fs::read_dir(d.join("out")).unwrap().flatten().all(|e| !e.path().to_string_lossy().ends_with(".partial")), "no partial files remain");
+    assert!(std::fs::read_dir(d.join("out")).unwrap().flatten().all(|e| !e.path().to_string_lossy().contains(".partial")), "no partial files remain");
 }
 
 #[test]
@@ -280,10 +290,10 @@ fn streamed_partitions_equal_in_memory_ones() {
     assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
     assert_eq!(column_bits(&read(&b)), column_bits(&read(&root().join("tests/golden/pulsar_demo.parquet"))));
     assert_eq!(column_bits(&read(&d.join("stream.rejects.parquet"))), column_bits(&read(&d.join("mem.rejects.parquet"))));
-    let md = |p: &Path| -> Vec<(String, String)> { lapse::io::read_parquet_metadata(p).unwrap().into_iter().filter(|(k, _)| k != "lapse.run.started_utc").collect() };
+    let md = |p: &Path| -> Vec<(String, String)> { lapse::io::read_parquet_metadata(p).unwrap().into_iter().filter(|(k, _)| k != "lapse.run.started_utc" && k != "lapse.run.id").collect() };
     assert_eq!(md(&a), md(&b));
     assert!(d.join("stream.residuals.png").exists());
-    assert!(std::fs::read_dir(&d).unwrap().flatten().all(|e| !e.path().to_string_lossy().ends_with(".partial")));
+    assert!(std::fs::read_dir(&d).unwrap().flatten().all(|e| !e.path().to_string_lossy().contains(".partial")));
     // An input in small row groups: slices cross them (columns arrive in
     // several chunks); streamed still equals in memory.
     let mut df = read(&root().join("data/demo/pulsar_toas.parquet"));

@@ -87,25 +87,34 @@ pub fn partial_path(path: &Path) -> PathBuf {
 }
 
 /// Writes a table with key-value metadata to `path`, through a temporary
-/// file renamed into place only when complete (columns compressed in
-/// parallel).
+/// file synced and renamed into place only when complete (columns
+/// compressed in parallel).
 pub fn write_parquet(df: &mut DataFrame, path: &Path, metadata: &[(String, String)]) -> Result<(), IoError> {
     let werr = |message: String| IoError::Write { path: path.into(), message };
     if let Some(dir) = path.parent().filter(|d| !d.as_os_str().is_empty()) {
         std::fs::create_dir_all(dir).map_err(|e| werr(e.to_string()))?;
     }
     let tmp = partial_path(path);
+    write_parquet_file(df, &tmp, metadata)?;
+    File::open(&tmp).and_then(|f| f.sync_all()).map_err(|e| werr(e.to_string()))?;
+    std::fs::rename(&tmp, path).map_err(|e| werr(e.to_string()))?;
+    Ok(())
+}
+
+/// Writes a table with key-value metadata to exactly `path` (the caller
+/// renames it into place; see `pipeline::commit`).
+pub fn write_parquet_file(df: &mut DataFrame, path: &Path, metadata: &[(String, String)]) -> Result<(), IoError> {
+    let werr = |message: String| IoError::Write { path: path.into(), message };
+    let tmp = path;
     // Buffered: the writer emits the footer a few bytes at a time (≈ 2300
     // write calls per file unbuffered).
-    let mut f = std::io::BufWriter::with_capacity(1 << 20, File::create(&tmp).map_err(|e| werr(e.to_string()))?);
+    let mut f = std::io::BufWriter::with_capacity(1 << 20, File::create(tmp).map_err(|e| werr(e.to_string()))?);
     let kv: Vec<polars_parquet::write::KeyValue> = metadata.iter().map(|(k, v)| polars_parquet::write::KeyValue { key: k.clone(), value: Some(v.clone()) }).collect();
     let mut w = ParquetWriter::new(&mut f).with_compression(output_compression()).with_key_value_metadata(Some(KeyValueMetadata::Static(kv))).batched(df.schema()).map_err(|e| werr(e.to_string()))?;
     write_row_groups_parallel(&mut w, df).map_err(|e| werr(e.to_string()))?;
     w.finish().map_err(|e| werr(e.to_string()))?;
     drop(w);
     std::io::Write::flush(&mut f).map_err(|e| werr(e.to_string()))?;
-    drop(f);
-    std::fs::rename(&tmp, path).map_err(|e| werr(e.to_string()))?;
     Ok(())
 }
 

@@ -13,11 +13,13 @@
 //! | [`preflight`] | findings, facts of an input, shared checks |
 //! | [`tally`] | residual sets, reject counts, summary lines, plots |
 //! | [`stream`] | one partition end to end, in memory or in slices |
+//! | [`commit`] | safe writes: staged files, lock, sync, renames, output last |
 //! | [`kind`] | the interface every kind implements |
 //!
 //! Paths in a pipeline are relative to the pipeline file's folder. Unknown
 //! keys are an error that names them.
 
+pub mod commit;
 mod error;
 pub mod file;
 pub mod kind;
@@ -54,11 +56,13 @@ pub struct RunOptions {
     pub exec: crate::parallel::Exec,
     /// Write residual plots beside the outputs.
     pub plots: bool,
+    /// Redo partitions whose outputs are up to date.
+    pub force: bool,
 }
 
 impl Default for RunOptions {
     fn default() -> Self {
-        Self { input: None, output: None, exec: crate::parallel::Exec::default(), plots: true }
+        Self { input: None, output: None, exec: crate::parallel::Exec::default(), plots: true, force: false }
     }
 }
 
@@ -74,5 +78,5 @@ pub fn run_kind(file: &PipelineFile, kind: &mut dyn Kind, opts: &RunOptions, on_
     let base = kind.provenance(file)?;
     let (input, output): (PathBuf, PathBuf) = (kind.input_path().into(), kind.output_path().into());
     let popts = stream::PartitionOptions { exec: opts.exec.clone(), plots: opts.plots };
-    for_each_partition(&input, &output, &base, |inp: &Path, out: &Path, prov| stream::run_partition(kind, inp, out, prov, &popts, on_report))
+    for_each_partition(&input, &output, &base, opts.force, |inp: &Path, out: &Path, prov| stream::run_partition(kind, inp, out, prov, &popts, on_report))
 }

@@ -27,7 +27,7 @@ pub fn resolve_inputs(p: &Path) -> Result<(Vec<PathBuf>, bool), PipelineError> {
     let mut files: Vec<PathBuf> = entries
         .filter_map(|e| e.ok().map(|e| e.path()))
         .filter(|f| f.is_file() && f.file_name().map(|n| glob_match(&pattern, &n.to_string_lossy())).unwrap_or(false))
-        .filter(|f| !f.to_string_lossy().ends_with(".partial"))
+        .filter(|f| !super::commit::is_partial(f))
         .collect();
     files.sort();
     if files.is_empty() {
@@ -68,36 +68,36 @@ pub fn partition_output(out_dir: &Path, input: &Path) -> PathBuf {
     out_dir.join(format!("{stem}.parquet"))
 }
 
-/// True when `output` and its rejects table exist and the output records
-/// the same pipeline and input hashes as `expected` (a run's provenance).
+/// True when `output`, its rejects table and its plots exist, all from one
+/// run (same run id; each plot's SHA-256 as the output records it), and the
+/// output records the same pipeline and input hashes as `expected` (a
+/// run's provenance).
 pub fn up_to_date(output: &Path, expected: &Provenance) -> bool {
-    if !output.exists() || !rejects_path(output).exists() {
+    let rejects = rejects_path(output);
+    if !output.exists() || !rejects.exists() {
         return false;
     }
-    let Ok(md) = crate::io::read_parquet_metadata(output) else { return false };
+    let (Ok(md), Ok(rmd)) = (crate::io::read_parquet_metadata(output), crate::io::read_parquet_metadata(&rejects)) else { return false };
     let md: BTreeMap<String, String> = md.into_iter().collect();
-    expected.identity().all(|(k, v)| md.get(k) == Some(v))
-}
-
-/// The temporary files a run writes on its way to `output` (and its
-/// rejects table): the data is written to these and renamed into place only
-/// when complete.
-pub fn partial_paths(output: &Path) -> [PathBuf; 4] {
-    [crate::io::partial_path(output), crate::io::partial_path(&rejects_path(output)), output.with_extension("stream-out.partial"), output.with_extension("stream-rejects.partial")]
-}
-
-/// Removes the temporary files a killed run left on its way to `output`.
-///
-/// Only this output's own partial files: other processes may be writing
-/// other outputs in the same folder at the same time (one cluster task per
-/// partition writes beside the others), and their partial files are theirs.
-pub fn remove_stale_partials(output: &Path) {
-    for p in partial_paths(output) {
-        if p.exists() {
-            tracing::warn!(path = %p.display(), "removing a partial file left by an interrupted run");
-            let _ = std::fs::remove_file(&p);
-        }
+    let rmd: BTreeMap<String, String> = rmd.into_iter().collect();
+    let run = md.get("lapse.run.id");
+    if run.is_none() || rmd.get("lapse.run.id") != run {
+        return false;
     }
+    let stem = output.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default();
+    let plots_intact = md
+        .iter()
+        .filter_map(|(k, v)| Some((k.strip_prefix("lapse.plot.")?.strip_suffix(".sha256")?, v)))
+        .all(|(name, sha)| std::fs::read(output.with_file_name(format!("{stem}.{name}"))).is_ok_and(|b| crate::io::digest::sha256_hex(&b) == *sha));
+    plots_intact && expected.identity().all(|(k, v)| md.get(k) == Some(v))
+}
+
+/// Example names of temporary files a killed run would leave for `output`
+/// (its output and rejects tables), as [`super::commit::Commit`] names them.
+pub fn partial_paths(output: &Path) -> [PathBuf; 2] {
+    let name = |p: &Path| p.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    let rej = rejects_path(output);
+    [output.with_file_name(format!(".{}.1-killed.partial.parquet", name(output))), rej.with_file_name(format!(".{}.1-killed.partial.parquet", name(&rej)))]
 }
 
 /// Runs `work` on every partition of a pipeline's input, skipping those
@@ -105,8 +105,9 @@ pub fn remove_stale_partials(output: &Path) {
 ///
 /// `base` holds the provenance shared by all partitions (pipeline, shared
 /// inputs); `work` receives the input, the output path and the partition's
-/// provenance (base plus the observations file).
-pub fn for_each_partition<F>(input: &Path, output: &Path, base: &Provenance, mut work: F) -> Result<RunSummary, PipelineError>
+/// provenance (base plus the observations file). `force` redoes partitions
+/// that are up to date.
+pub fn for_each_partition<F>(input: &Path, output: &Path, base: &Provenance, force: bool, mut work: F) -> Result<RunSummary, PipelineError>
 where
     F: FnMut(&Path, &Path, Provenance) -> Result<RunSummary, PipelineError>,
 {
@@ -118,15 +119,33 @@ where
     if !out_dir.as_os_str().is_empty() {
         std::fs::create_dir_all(&out_dir).map_err(|source| PipelineError::Folder { path: out_dir.clone(), source })?;
     }
+    // Refused before anything is read: an output that would overwrite an
+    // input, an output folder that is the input folder, and two partitions
+    // with one output name.
+    let outs: Vec<PathBuf> = inputs.iter().map(|inp| if partitioned { partition_output(output, inp) } else { output.to_path_buf() }).collect();
+    if partitioned && inputs.first().and_then(|f| f.parent()).is_some_and(|d| super::commit::same_file(d, output)) {
+        return Err(PipelineError::Input { path: output.into(), message: "the output folder is the input folder: outputs would be read as inputs by the next run; write elsewhere".into() });
+    }
+    for (inp, out) in inputs.iter().zip(&outs) {
+        for o in [out.clone(), rejects_path(out)] {
+            if let Some(victim) = inputs.iter().find(|i| super::commit::same_file(i, &o)) {
+                return Err(PipelineError::Input { path: o, message: format!("this output would overwrite the input {} (from {}): write elsewhere", victim.display(), inp.display()) });
+            }
+        }
+    }
+    let mut seen: BTreeMap<&Path, &Path> = BTreeMap::new();
+    for (inp, out) in inputs.iter().zip(&outs) {
+        if let Some(first) = seen.insert(out, inp) {
+            return Err(PipelineError::Input { path: inp.clone(), message: format!("has the same stem as {}: both would write {}; rename one", first.display(), out.display()) });
+        }
+    }
     let mut total = RunSummary { output: output.into(), rejects: rejects_path(output), ..Default::default() };
-    for inp in &inputs {
-        let out = if partitioned { partition_output(output, inp) } else { output.to_path_buf() };
-        remove_stale_partials(&out);
+    for (inp, out) in inputs.iter().zip(outs) {
         let mut prov = base.clone();
         let obs_sha = super::sha256_file(inp)?;
         prov.set("input.observations.0.path", &inp.display().to_string());
         prov.set("input.observations.0.sha256", &obs_sha);
-        if partitioned && up_to_date(&out, &prov) {
+        if partitioned && !force && up_to_date(&out, &prov) {
             total.notes.push(format!("partition {}: up to date, skipped", inp.display()));
             total.partitions_skipped += 1;
             continue;

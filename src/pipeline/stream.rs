@@ -7,13 +7,14 @@ use std::path::Path;
 
 use polars::prelude::*;
 
+use super::commit::Commit;
 use super::kind::{Kind, Processed};
-use super::partition::{partial_paths, rejects_path};
+use super::partition::rejects_path;
 use super::preflight::{Facts, Level, Preflight, check_partition, scan_file, scan_frame};
 use super::table::{IdChecker, check_unique_ids, ids, parquet_rows, read_parquet_slice};
 use super::tally::{Tally, plot, summarise};
 use super::{PipelineError, Provenance, RunSummary};
-use crate::io::{IoError, read_parquet, write_parquet};
+use crate::io::{IoError, read_parquet, write_parquet_file};
 use crate::parallel::Exec;
 
 /// Rows above which a partition of a kind that streams is processed in
@@ -67,7 +68,9 @@ fn finish(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provenance, of
 /// Runs one partition: `input` → `output` and its rejects table. The
 /// partition is read once: its preflight report (handed to `on_report`
 /// before anything is computed) and the computation share the read.
+/// Everything is written through one [`Commit`].
 pub fn run_partition(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov: Provenance, opts: &PartitionOptions, on_report: &mut OnReport) -> Result<RunSummary, PipelineError> {
+    let mut commit = Commit::begin(output)?;
     let n_rows = parquet_rows(input)?;
     let streamed = kind.streams() && n_rows > env_usize("LAPSE_STREAM_ROWS", STREAM_ABOVE_ROWS);
     let t0 = std::time::Instant::now();
@@ -84,22 +87,50 @@ pub fn run_partition(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov:
     let mut report = Preflight::default();
     check_partition(kind, &mut report, input, &facts);
     on_report(input, &report)?;
+    prov.set("run.id", commit.run_id());
     prov.set("input.observations.0.bytes", &std::fs::metadata(input).map(|m| m.len()).unwrap_or(0).to_string());
     let mut summary = RunSummary { output: output.into(), rejects: rejects_path(output), ..Default::default() };
-    let tally = match frame {
-        Some(df) => in_memory(kind, &df, input, output, prov, opts, &mut summary)?,
+    match frame {
+        Some(df) => in_memory(kind, &df, input, output, prov, opts, &mut summary, &mut commit)?,
         None => {
             kind.prepare(&facts);
-            in_slices(kind, input, output, prov, opts, &mut summary, n_rows)?
+            in_slices(kind, input, output, prov, opts, &mut summary, n_rows, &mut commit)?
         }
-    };
-    if opts.plots {
-        summary.plots = plot(&tally, output)?;
     }
+    commit.commit()?;
     Ok(summary)
 }
 
-fn in_memory(kind: &mut dyn Kind, df: &DataFrame, input: &Path, output: &Path, mut prov: Provenance, opts: &PartitionOptions, summary: &mut RunSummary) -> Result<Tally, PipelineError> {
+/// The summary, provenance and plots of a complete partition: the plots are
+/// staged and their SHA-256 recorded, so the up-to-date check can tell they
+/// belong to the output.
+fn finish_partition(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provenance, offsets: &[(&'static str, f64)], output: &Path, plots: bool, commit: &mut Commit) -> Result<(), PipelineError> {
+    finish(tally, summary, prov, offsets);
+    if plots {
+        for (staged, fin) in plot(tally, output, commit)? {
+            let bytes = std::fs::read(&staged).map_err(|e| IoError::Write { path: staged.clone(), message: e.to_string() })?;
+            // Keyed by the name after the output's stem (`residuals.png`),
+            // so the metadata does not depend on the output's name.
+            let name = fin.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+            let stem = output.file_stem().map(|s| format!("{}.", s.to_string_lossy())).unwrap_or_default();
+            prov.set(&format!("plot.{}.sha256", name.strip_prefix(&stem).unwrap_or(&name)), &crate::io::digest::sha256_hex(&bytes));
+            summary.plots.push(fin);
+        }
+    }
+    Ok(())
+}
+
+#[allow(clippy::too_many_arguments)]
+fn in_memory(
+    kind: &mut dyn Kind,
+    df: &DataFrame,
+    input: &Path,
+    output: &Path,
+    mut prov: Provenance,
+    opts: &PartitionOptions,
+    summary: &mut RunSummary,
+    commit: &mut Commit,
+) -> Result<(), PipelineError> {
     let t0 = std::time::Instant::now();
     let Processed { output: mut out, rejects: mut rej, mut tally } = process_checked(kind, df, input, &opts.exec)?;
     let t1 = std::time::Instant::now();
@@ -108,13 +139,12 @@ fn in_memory(kind: &mut dyn Kind, df: &DataFrame, input: &Path, output: &Path, m
         subtract(&mut out, col, *offset, input)?;
     }
     (summary.rows_in, summary.rows_out, summary.rows_rejected) = (df.height(), out.height(), rej.height());
-    finish(&mut tally, summary, &mut prov, &offsets);
+    finish_partition(&mut tally, summary, &mut prov, &offsets, output, opts.plots, commit)?;
     let metadata = prov.finish();
-    // Rejects first, output last: an existing output marks a complete partition.
-    write_parquet(&mut rej, &rejects_path(output), &metadata)?;
-    write_parquet(&mut out, output, &metadata)?;
+    write_parquet_file(&mut rej, &commit.stage(&rejects_path(output)), &metadata)?;
+    write_parquet_file(&mut out, &commit.stage(output), &metadata)?;
     tracing::debug!(rows = df.height(), compute_s = (t1 - t0).as_secs_f64(), write_s = t1.elapsed().as_secs_f64(), "wrote {}", output.display());
-    Ok(tally)
+    Ok(())
 }
 
 type Writer = polars::io::parquet::write::BatchedWriter<std::fs::File>;
@@ -139,12 +169,22 @@ fn close(w: Writer, path: &Path) -> Result<(), PipelineError> {
 }
 
 /// The streamed form: slices are computed and written (raw values) to
-/// temporary files while only the tally stays in memory; then the final
+/// scratch files while only the tally stays in memory; then the final
 /// files are written from them with any weighted mean removed and the
 /// metadata complete. Same tables as [`in_memory`].
-fn in_slices(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov: Provenance, opts: &PartitionOptions, summary: &mut RunSummary, n_rows: usize) -> Result<Tally, PipelineError> {
+#[allow(clippy::too_many_arguments)]
+fn in_slices(
+    kind: &mut dyn Kind,
+    input: &Path,
+    output: &Path,
+    mut prov: Provenance,
+    opts: &PartitionOptions,
+    summary: &mut RunSummary,
+    n_rows: usize,
+    commit: &mut Commit,
+) -> Result<(), PipelineError> {
     let slice = env_usize("LAPSE_STREAM_SLICE", STREAM_SLICE_ROWS);
-    let [_, _, tmp_out, tmp_rej] = partial_paths(output);
+    let (tmp_out, tmp_rej) = (commit.scratch(output), commit.scratch(&rejects_path(output)));
     let (mut w_out, mut w_rej): (Option<Writer>, Option<Writer>) = (None, None);
     let mut tally = Tally::default();
     let mut at = 0usize;
@@ -152,8 +192,8 @@ fn in_slices(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov: Provena
         let df = read_parquet_slice(input, at, slice, None)?;
         let Processed { output: mut out, rejects: mut rej, tally: t } = kind.process(&df, input, &opts.exec)?;
         if w_out.is_none() {
-            w_out = Some(writer(&tmp_out, out.schema(), None)?);
-            w_rej = Some(writer(&tmp_rej, rej.schema(), None)?);
+            w_out = Some(writer(&tmp_out, &out.schema(), None)?);
+            w_rej = Some(writer(&tmp_rej, &rej.schema(), None)?);
         }
         if let (Some(wo), Some(wr)) = (w_out.as_mut(), w_rej.as_mut()) {
             write_slice(wo, &mut out, &tmp_out)?;
@@ -170,17 +210,17 @@ fn in_slices(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov: Provena
         close(wr, &tmp_rej)?;
     }
     let offsets = tally.remove_means();
-    finish(&mut tally, summary, &mut prov, &offsets);
+    finish_partition(&mut tally, summary, &mut prov, &offsets, output, opts.plots, commit)?;
     let metadata = prov.finish();
-    // Pass 2: final files, offsets removed, full metadata; rejects first.
+    // Pass 2: final files, offsets removed, full metadata.
     for (tmp, fin, n, fix) in [(&tmp_rej, rejects_path(output), summary.rows_rejected, false), (&tmp_out, output.to_path_buf(), summary.rows_out, true)] {
-        let part = crate::io::partial_path(&fin);
+        let part = commit.stage(&fin);
         let mut w: Option<Writer> = None;
         let mut k = 0usize;
         loop {
             let mut df = read_parquet_slice(tmp, k, slice, None)?;
             if w.is_none() {
-                w = Some(writer(&part, df.schema(), Some(&metadata))?);
+                w = Some(writer(&part, &df.schema(), Some(&metadata))?);
             }
             if fix {
                 for (col, offset) in &offsets {
@@ -198,10 +238,9 @@ fn in_slices(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov: Provena
         if let Some(w) = w {
             close(w, &part)?;
         }
-        std::fs::rename(&part, &fin).map_err(|e| IoError::Write { path: fin.clone(), message: e.to_string() })?;
         let _ = std::fs::remove_file(tmp);
     }
-    Ok(tally)
+    Ok(())
 }
 
 /// Scans a partition for `lapse check`: ids, typed columns and facts (in

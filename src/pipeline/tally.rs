@@ -325,8 +325,9 @@ pub fn summarise(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provena
 /// Most points a plot shows; more rows are thinned to every k-th.
 pub const PLOT_MAX_POINTS: usize = 50_000;
 
-/// Residual plots of every set with accepted rows, beside `output`.
-pub fn plot(tally: &Tally, output: &Path) -> Result<Vec<PathBuf>, PipelineError> {
+/// Residual plots of every set with accepted rows, beside `output`, staged
+/// in `commit`: (staged, final) path pairs.
+pub fn plot(tally: &Tally, output: &Path, commit: &mut super::commit::Commit) -> Result<Vec<(PathBuf, PathBuf)>, PipelineError> {
     let mut written = Vec::new();
     for s in tally.sets.iter().filter(|s| !s.is_empty()) {
         let step = s.len().div_ceil(PLOT_MAX_POINTS).max(1);
@@ -336,7 +337,10 @@ pub fn plot(tally: &Tally, output: &Path) -> Result<Vec<PathBuf>, PipelineError>
         let pick = |v: &[f64], scale: f64| idx.iter().map(|i| v[*i] * scale).collect::<Vec<f64>>();
         let groups = crate::plots::group(&labels, &pick(&s.x_mjd, 1.0), &pick(&s.residual, k), &pick(&s.sigma, k));
         let y_label = format!("residual ({})", s.plot.unit.name);
-        written.extend(crate::plots::residual_plots(output, &s.plot.name, &s.plot.title, &s.plot.x_label, &y_label, &groups).map_err(|source| PipelineError::Plot { path: output.into(), source })?);
+        written.extend(
+            crate::plots::residual_plots(output, &s.plot.name, &s.plot.title, &s.plot.x_label, &y_label, &groups, &mut |p| commit.stage(p))
+                .map_err(|source| PipelineError::Plot { path: output.into(), source })?,
+        );
     }
     Ok(written)
 }

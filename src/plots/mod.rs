@@ -141,10 +141,12 @@ where
     area.present().map_err(PlotError::draw)
 }
 
-/// Writes `<output stem>.<name>.{png,svg}` (residuals against time) and
-/// `<output stem>.<name>_normalised.{png,svg}` (histogram of residual/σ).
-/// Returns the paths written.
-pub fn residual_plots(output: &Path, name: &str, title: &str, x_label: &str, y_label: &str, groups: &[Group]) -> Result<Vec<PathBuf>, PlotError> {
+/// Draws `<output stem>.<name>.{png,svg}` (residuals against time) and
+/// `<output stem>.<name>_normalised.{png,svg}` (histogram of residual/σ),
+/// each written where `stage` says for its final path (a temporary name
+/// with the same extension, renamed by the caller). Returns (written,
+/// final) path pairs.
+pub fn residual_plots(output: &Path, name: &str, title: &str, x_label: &str, y_label: &str, groups: &[Group], stage: &mut dyn FnMut(&Path) -> PathBuf) -> Result<Vec<(PathBuf, PathBuf)>, PlotError> {
     register_font();
     let stem = output.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "output".into());
     let dir = output.parent().unwrap_or(Path::new("."));
@@ -153,11 +155,12 @@ pub fn residual_plots(output: &Path, name: &str, title: &str, x_label: &str, y_l
     let (res_png, res_svg) = (p(name, "png"), p(name, "svg"));
     let hist = format!("{name}_normalised");
     let (hist_png, hist_svg) = (p(&hist, "png"), p(&hist, "svg"));
-    draw_residuals(&BitMapBackend::new(&res_png, (1200, 700)).into_drawing_area(), title, x_label, y_label, groups)?;
-    draw_residuals(&SVGBackend::new(&res_svg, (1200, 700)).into_drawing_area(), title, x_label, y_label, groups)?;
+    let staged: Vec<PathBuf> = [&res_png, &res_svg, &hist_png, &hist_svg].into_iter().map(|p| stage(p)).collect();
+    draw_residuals(&BitMapBackend::new(&staged[0], (1200, 700)).into_drawing_area(), title, x_label, y_label, groups)?;
+    draw_residuals(&SVGBackend::new(&staged[1], (1200, 700)).into_drawing_area(), title, x_label, y_label, groups)?;
     let htitle = format!("{title}: normalised residuals");
-    draw_histogram(&BitMapBackend::new(&hist_png, (900, 600)).into_drawing_area(), &htitle, groups)?;
-    draw_histogram(&SVGBackend::new(&hist_svg, (900, 600)).into_drawing_area(), &htitle, groups)?;
-    written.extend([res_png, res_svg, hist_png, hist_svg]);
+    draw_histogram(&BitMapBackend::new(&staged[2], (900, 600)).into_drawing_area(), &htitle, groups)?;
+    draw_histogram(&SVGBackend::new(&staged[3], (900, 600)).into_drawing_area(), &htitle, groups)?;
+    written.extend(staged.into_iter().zip([res_png, res_svg, hist_png, hist_svg]));
     Ok(written)
 }
