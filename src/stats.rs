@@ -42,7 +42,8 @@ pub struct ResidualSummary {
 /// eq. 4.17 (weighted mean) and eq. 11.1 (χ²).
 pub fn residual_summary(residual: &[f64], sigma: &[f64], about_mean: bool) -> ResidualSummary {
     let (mean, sw) = weighted_mean_and_weight(residual.iter().copied().zip(sigma.iter().copied()));
-    if !(sw.is_finite() && mean.is_finite()) && !residual.is_empty() {
+    let overflowed = !(sw.is_finite() && mean.is_finite());
+    if overflowed && !residual.is_empty() {
         return scaled_summary(residual, sigma, about_mean);
     }
     let c = if about_mean { mean } else { 0.0 };

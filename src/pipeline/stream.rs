@@ -192,8 +192,8 @@ fn in_slices(
         let df = read_parquet_slice(input, at, slice, None)?;
         let Processed { output: mut out, rejects: mut rej, tally: t } = kind.process(&df, input, &opts.exec)?;
         if w_out.is_none() {
-            w_out = Some(writer(&tmp_out, &out.schema(), None)?);
-            w_rej = Some(writer(&tmp_rej, &rej.schema(), None)?);
+            w_out = Some(writer(&tmp_out, out.schema(), None)?);
+            w_rej = Some(writer(&tmp_rej, rej.schema(), None)?);
         }
         if let (Some(wo), Some(wr)) = (w_out.as_mut(), w_rej.as_mut()) {
             write_slice(wo, &mut out, &tmp_out)?;
@@ -220,7 +220,7 @@ fn in_slices(
         loop {
             let mut df = read_parquet_slice(tmp, k, slice, None)?;
             if w.is_none() {
-                w = Some(writer(&part, &df.schema(), Some(&metadata))?);
+                w = Some(writer(&part, df.schema(), Some(&metadata))?);
             }
             if fix {
                 for (col, offset) in &offsets {
