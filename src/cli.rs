@@ -185,12 +185,20 @@ impl TimeArgs {
     }
 }
 
+/// `--threads` may be at most this many times the cores (more only adds
+/// contention; a typo like 100 000 would start that many threads).
+pub const MAX_THREADS_PER_CORE: usize = 4;
+
 /// The run's options, with the worker threads set up, and the progress
 /// display (unless quiet).
 pub fn run_options(args: &RunArgs, quiet: bool) -> Result<(lapse::pipeline::RunOptions, Option<lapse::commands::progress::Progress>)> {
     // Every parallel step (loading, grids, rows, and the Parquet reader and
     // writer) uses this many threads.
     if let Some(n) = args.threads {
+        let cores = std::thread::available_parallelism().map(|c| c.get()).unwrap_or(1);
+        if n == 0 || n > MAX_THREADS_PER_CORE * cores {
+            anyhow::bail!("--threads {n}: give 1 … {} ({MAX_THREADS_PER_CORE} × the {cores} cores here)", MAX_THREADS_PER_CORE * cores);
+        }
         if std::env::var_os("POLARS_MAX_THREADS").is_none() {
             // SAFETY: no other thread exists yet (the worker pool is built
             // below, polars' pool on its first use).
@@ -199,9 +207,10 @@ pub fn run_options(args: &RunArgs, quiet: bool) -> Result<(lapse::pipeline::RunO
         rayon::ThreadPoolBuilder::new().num_threads(n).build_global().context("cannot start the worker threads")?;
     }
     let counter = Arc::new(AtomicUsize::new(0));
+    let phase = Arc::new(std::sync::atomic::AtomicU8::new(0));
     let exec = lapse::parallel::Exec { chunk_rows: args.chunk_rows, progress: Some(counter.clone()) };
-    let opts = lapse::pipeline::RunOptions { input: args.input.clone(), output: args.output.clone(), exec, plots: !args.no_plots, force: args.force };
-    let progress = (!quiet).then(|| lapse::commands::progress::Progress::start(lapse::pipeline::input_rows(&args.pipeline, args.input.as_deref()).unwrap_or(0), counter));
+    let opts = lapse::pipeline::RunOptions { input: args.input.clone(), output: args.output.clone(), exec, plots: !args.no_plots, force: args.force, phase: Some(phase.clone()) };
+    let progress = (!quiet).then(|| lapse::commands::progress::Progress::start(lapse::pipeline::input_rows(&args.pipeline, args.input.as_deref()).unwrap_or(0), counter, phase));
     Ok((opts, progress))
 }
 

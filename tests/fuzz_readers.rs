@@ -199,3 +199,30 @@ fn parquet_bytes() {
         let _ = lapse::io::read_parquet_metadata(&p);
     });
 }
+
+#[test]
+fn parquet_readers_whole_sliced_and_streamed() {
+    // Mutations of a pulsar input through every Parquet reader a run uses:
+    // whole-file reads, row counts, slices (streamed partitions), the
+    // kernel's sliced scan (ids, typed columns, facts) and one batch.
+    let seed = std::fs::read(root().join("data/demo/pulsar_toas.parquet")).unwrap();
+    let dir = std::env::temp_dir().join(format!("lapse-fuzz-slices-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    let file = lapse::pipeline::PipelineFile::read(&root().join("pipelines/pulsar_demo.toml")).unwrap();
+    let engine = std::sync::Mutex::new(lapse::commands::engine::BatchEngine::from_file(file.clone()).unwrap());
+    let kind = lapse::kinds::load(&file).unwrap();
+    let counter = std::sync::atomic::AtomicUsize::new(0);
+    fuzz_bytes("parquet slices", &seed, |b| {
+        let p = dir.join(format!("s{}.parquet", counter.fetch_add(1, std::sync::atomic::Ordering::Relaxed) % 8));
+        std::fs::write(&p, b).unwrap();
+        if let Ok(n) = lapse::pipeline::table::parquet_rows(&p) {
+            for at in [0, n / 3, n.saturating_sub(1)] {
+                let _ = lapse::pipeline::table::read_parquet_slice(&p, at, 97, None);
+            }
+        }
+        let _ = lapse::pipeline::preflight::scan_file(kind.as_ref(), &p);
+        if let Ok(df) = lapse::io::read_parquet(&p) {
+            let _ = engine.lock().unwrap().process(&df, &p);
+        }
+    });
+}

@@ -314,3 +314,154 @@ fn item10_partitions_with_the_same_stem_are_refused() {
     assert!(text(&o).contains("same stem") && text(&o).contains("night1.parquet") && text(&o).contains("night1.pq"), "{}", text(&o));
     assert!(!d.join("out/night1.parquet").exists());
 }
+
+/// Item 13: on a terminal the progress bar is cleared before the summary is
+/// printed, and labels its phase (run under a pseudo-terminal by `script`).
+#[test]
+fn item13_progress_bar_leaves_the_summary_intact() {
+    if std::process::Command::new("script").arg("--version").output().is_err() {
+        eprintln!("skipped: no `script` (util-linux) to make a terminal");
+        return;
+    }
+    let d = tmpdir("h13");
+    let out = d.join("out.parquet");
+    let cmd = format!("{} run {} --output {} --no-plots", env!("CARGO_BIN_EXE_lapse"), root().join("pipelines/pulsar_demo.toml").display(), out.display());
+    let o = std::process::Command::new("script").args(["-qec", &cmd, "/dev/null"]).env("LAPSE_PROGRESS_AFTER_MS", "0").env("COLUMNS", "160").output().unwrap();
+    let raw = String::from_utf8_lossy(&o.stdout).into_owned();
+    assert_eq!(o.status.code(), Some(0), "{raw}");
+    // What a person sees: for each line, the text after its last carriage
+    // return, without escape sequences.
+    let strip = |l: &str| -> String {
+        let l = l.rsplit('\r').find(|s| !s.trim().is_empty()).unwrap_or("");
+        let mut s = String::new();
+        let mut esc = false;
+        for c in l.chars() {
+            if esc {
+                esc = !c.is_ascii_alphabetic();
+            } else if c == '\u{1b}' {
+                esc = true;
+            } else {
+                s.push(c);
+            }
+        }
+        s
+    };
+    let screen: Vec<String> = raw.lines().map(strip).collect();
+    for want in ["pipeline   ", "rows in    1340", "rows out   1340", "residuals: 1340 rows", "  site               rows  rejected  weighted RMS (ns)           χ²", "  FALCON-RT ", "  KESTREL-1 "] {
+        assert!(screen.iter().any(|l| l.starts_with(want)), "no intact line starting {want:?} in:\n{}", screen.join("\n"));
+    }
+    assert!(!screen.iter().any(|l| l.starts_with("pipeline") && l.contains("rows/s")), "a bar left on the summary:\n{}", screen.join("\n"));
+}
+
+/// Item 14: `--threads` is capped at 4 × the cores.
+#[test]
+fn item14_threads_are_capped() {
+    let o = lapse(&["run", root().join("pipelines/pulsar_demo.toml").to_str().unwrap(), "--threads", "100000"]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+    assert!(text(&o).contains("--threads 100000: give 1 …"), "{}", text(&o));
+    let o = lapse(&["run", root().join("pipelines/pulsar_demo.toml").to_str().unwrap(), "--threads", "0"]);
+    assert_eq!(o.status.code(), Some(2), "{}", text(&o));
+}
+
+/// Item 15: messages a nightly job can trust.
+#[test]
+fn item15_messages() {
+    let d = tmpdir("h15");
+    let (i, o) = (d.join("in.parquet"), d.join("out.parquet"));
+    // (a) an unusable partition is reported once by `run`.
+    let mut df = demo_rows(5).drop("freq_mhz").unwrap();
+    write(&i, &mut df);
+    let p = pulsar_pipeline(&d, &i.display().to_string(), &o.display().to_string(), |t| t);
+    let r = lapse(&["run", p.to_str().unwrap()]);
+    assert_eq!(r.status.code(), Some(2));
+    assert_eq!(text(&r).matches("missing column 'freq_mhz'").count(), 1, "{}", text(&r));
+    // (b) a pipeline that does not load is not first called ok.
+    let bad = d.join("bad.toml");
+    std::fs::write(&bad, std::fs::read_to_string(&p).unwrap().replace("ra_deg = 253.4127", "ra_deg = 999.0")).unwrap();
+    let r = lapse(&["check", bad.to_str().unwrap()]);
+    assert_eq!(r.status.code(), Some(2));
+    assert!(!text(&r).contains("ok       pipeline"), "{}", text(&r));
+    // (c) an output folder that cannot be made is not "cannot read pipeline".
+    let mut df = demo_rows(5);
+    write(&i, &mut df);
+    std::fs::write(d.join("afile"), b"x").unwrap();
+    let under_file = d.join("afile/out.parquet");
+    let r = lapse(&["run", p.to_str().unwrap(), "--output", under_file.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(r.status.code(), Some(2));
+    assert!(!text(&r).contains("cannot read pipeline") && text(&r).contains("afile"), "{}", text(&r));
+    // (d) a huge id is clipped in messages.
+    let big = "x".repeat(1 << 20);
+    let mut dup = df!("obs_id" => [big.as_str(), big.as_str()], "site" => ["FALCON-RT"; 2], "arrival_mjd_day" => [60_000i64; 2], "arrival_mjd_frac" => [0.1, 0.2], "freq_mhz" => [1400.0; 2], "sigma_us" => [1.0; 2]).unwrap();
+    write(&i, &mut dup);
+    let r = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(r.status.code(), Some(2));
+    assert!(text(&r).contains("duplicate obs_id") && text(&r).len() < 2000, "{} bytes of message", text(&r).len());
+    // (e) `lapse time … | head -1` ends quietly with exit 0.
+    let epochs: String = (0..20_000).map(|k| format!("mjd:{}\n", 58_000 + k % 3000)).collect();
+    std::fs::write(d.join("epochs.txt"), epochs).unwrap();
+    let sh = format!("set -o pipefail; {} time --file {} | head -1", env!("CARGO_BIN_EXE_lapse"), d.join("epochs.txt").display());
+    let r = std::process::Command::new("bash").args(["-c", &sh]).output().unwrap();
+    assert_eq!(r.status.code(), Some(0), "{}", text(&r));
+    assert!(!String::from_utf8_lossy(&r.stderr).contains("Broken pipe"), "{}", text(&r));
+    // (f) int8 and decimal extra columns pass through.
+    let mut df = demo_rows(5);
+    df.with_column(Column::new("flag8".into(), [1i8, 2, 3, 4, 5])).unwrap();
+    df.with_column(Column::new("amount".into(), [1.25f64, 2.5, 3.75, 5.0, 6.25]).cast(&DataType::Decimal(10, 2)).unwrap()).unwrap();
+    write(&i, &mut df);
+    let r = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+    assert_eq!(r.status.code(), Some(0), "{}", text(&r));
+    let out = read(&o);
+    assert!(out.column("flag8").is_ok() && out.column("amount").is_ok());
+    // (g) an input column with an output column's name is refused up front.
+    for name in ["reason", "residual_s", "reason_code"] {
+        let _ = std::fs::remove_file(&o);
+        let mut df = demo_rows(5);
+        df.with_column(Column::new(name.into(), [0.0; 5])).unwrap();
+        write(&i, &mut df);
+        let r = lapse(&["run", p.to_str().unwrap(), "--no-plots"]);
+        assert_eq!(r.status.code(), Some(2), "{name}: {}", text(&r));
+        assert!(text(&r).contains(&format!("input column '{name}'")), "{}", text(&r));
+        assert!(!o.exists());
+    }
+    // (h) the partitioned summary names the per-partition files; (i) --force.
+    std::fs::create_dir_all(d.join("in")).unwrap();
+    write(&d.join("in/a.parquet"), &mut demo_rows(5));
+    write(&d.join("in/b.parquet"), &mut demo_rows(5).slice(5, 5));
+    let pp = pulsar_pipeline(&d, &d.join("in").display().to_string(), &d.join("outs").display().to_string(), |t| t);
+    let r = lapse(&["run", pp.to_str().unwrap(), "--no-plots"]);
+    assert!(String::from_utf8_lossy(&r.stdout).contains("/<partition>.rejects.parquet"), "{}", text(&r));
+    let r = lapse(&["run", pp.to_str().unwrap(), "--no-plots"]);
+    assert!(String::from_utf8_lossy(&r.stdout).contains("rows in    0 (in the 0 partitions processed)"), "{}", text(&r));
+    let r = lapse(&["run", pp.to_str().unwrap(), "--no-plots", "--force"]);
+    assert!(String::from_utf8_lossy(&r.stdout).contains("partitions 2 processed, 0 up to date"), "{}", text(&r));
+}
+
+/// Item 16: provenance records canonical paths and every model parameter;
+/// `lapse diff` shows the pipelines' texts as a unified diff; `--tolerance`
+/// naming no column is an error; patterns match columns.
+#[test]
+fn item16_provenance_and_diff() {
+    let d = tmpdir("h16");
+    let mut df = demo_rows(20);
+    write(&d.join("in.parquet"), &mut df);
+    let a = pulsar_pipeline(&d, &d.join("in.parquet").display().to_string(), &d.join("a.parquet").display().to_string(), |t| t);
+    assert_eq!(lapse(&["run", a.to_str().unwrap(), "--no-plots"]).status.code(), Some(0));
+    let b = d.join("b.toml");
+    std::fs::write(&b, std::fs::read_to_string(&a).unwrap().replace("measure_pc_cm3 = 41.27", "measure_pc_cm3 = 41.30").replace("a.parquet", "b.parquet")).unwrap();
+    assert_eq!(lapse(&["run", b.to_str().unwrap(), "--no-plots"]).status.code(), Some(0));
+    let md: std::collections::BTreeMap<String, String> = lapse::io::read_parquet_metadata(&d.join("a.parquet")).unwrap().into_iter().collect();
+    assert_eq!(md["lapse.param.dispersion.measure_pc_cm3"], "41.27");
+    assert_eq!(md["lapse.param.spin.derivatives.0"], "-6.31e-16");
+    let canon = &md["lapse.input.kernel.0.canonical_path"];
+    assert!(Path::new(canon).is_absolute() && !canon.contains("/../") && !canon.contains("/./"), "{canon}");
+    assert!(md.contains_key("lapse.input.observations.0.canonical_path"));
+    let r = lapse(&["diff", d.join("a.parquet").to_str().unwrap(), d.join("b.parquet").to_str().unwrap()]);
+    let out = text(&r);
+    assert!(out.contains("-measure_pc_cm3 = 41.27") && out.contains("+measure_pc_cm3 = 41.30"), "{out}");
+    assert!(out.contains("lapse.param.dispersion.measure_pc_cm3"), "{out}");
+    let r = lapse(&["diff", d.join("a.parquet").to_str().unwrap(), d.join("b.parquet").to_str().unwrap(), "--tolerance", "dispersion=1"]);
+    assert_eq!(r.status.code(), Some(2), "{}", text(&r));
+    assert!(text(&r).contains("'dispersion' matches no column"), "{}", text(&r));
+    let r = lapse(&["diff", d.join("a.parquet").to_str().unwrap(), d.join("b.parquet").to_str().unwrap(), "--tolerance", "*_s=1", "--tolerance", "*_frac=1", "--tolerance", "pulse_number=1000000"]);
+    assert_eq!(r.status.code(), Some(0), "patterns cover every changed column: {}", text(&r));
+}

@@ -24,7 +24,6 @@ pub fn check(path: &Path, input: Option<&Path>) -> Preflight {
             return p;
         }
     };
-    p.add(Level::Ok, format!("pipeline {} (kind {})", path.display(), file.kind));
     let mut kind = match crate::kinds::load(&file) {
         Ok(k) => k,
         Err(e) => {
@@ -32,6 +31,7 @@ pub fn check(path: &Path, input: Option<&Path>) -> Preflight {
             return p;
         }
     };
+    p.add(Level::Ok, format!("pipeline {} (kind {})", path.display(), file.kind));
     p.add(Level::Ok, kind.loaded());
     kind.override_paths(input.map(Path::to_path_buf), None);
     match resolve_inputs(kind.input_path()) {

@@ -69,11 +69,17 @@ pub fn render_summary(pipeline: &Path, s: &RunSummary) -> String {
         out.push('\n');
     };
     line(format!("pipeline   {}", pipeline.display()));
-    line(format!("rows in    {}", s.rows_in));
-    line(format!("rows out   {}  → {}", s.rows_out, s.output.display()));
-    line(format!("rejected   {}  → {}", s.rows_rejected, s.rejects.display()));
-    if s.partitions_done + s.partitions_skipped > 1 {
+    let partitioned = s.partitions_done + s.partitions_skipped > 1 || s.partitions_skipped > 0;
+    if partitioned {
+        // Per partition: <folder>/<input stem>.parquet and .rejects.parquet.
+        line(format!("rows in    {} (in the {} partitions processed)", s.rows_in, s.partitions_done));
+        line(format!("rows out   {}  → {}/<partition>.parquet", s.rows_out, s.output.display()));
+        line(format!("rejected   {}  → {}/<partition>.rejects.parquet", s.rows_rejected, s.output.display()));
         line(format!("partitions {} processed, {} up to date (skipped)", s.partitions_done, s.partitions_skipped));
+    } else {
+        line(format!("rows in    {}", s.rows_in));
+        line(format!("rows out   {}  → {}", s.rows_out, s.output.display()));
+        line(format!("rejected   {}  → {}", s.rows_rejected, s.rejects.display()));
     }
     if !s.plots.is_empty() {
         line(format!("plots      {}", s.plots.iter().filter(|p| p.extension().is_some_and(|e| e == "png")).map(|p| p.display().to_string()).collect::<Vec<_>>().join(", ")));

@@ -30,6 +30,54 @@ pub enum DiffError {
     Tolerance(String),
 }
 
+fn is_pattern(k: &str) -> bool {
+    k.contains('*') || k.contains('?')
+}
+
+/// The changed lines of two texts with their context (one line), marked
+/// `-` (only in A), `+` (only in B) or ` ` (both), from a longest common
+/// subsequence of lines; `@@ line N` opens each hunk. Pipeline texts are
+/// short, so the quadratic table is small.
+pub fn unified_diff(a: &str, b: &str) -> Vec<String> {
+    let (x, y): (Vec<&str>, Vec<&str>) = (a.lines().collect(), b.lines().collect());
+    let (n, m) = (x.len(), y.len());
+    let mut lcs = vec![vec![0u32; m + 1]; n + 1];
+    for i in (0..n).rev() {
+        for j in (0..m).rev() {
+            lcs[i][j] = if x[i] == y[j] { lcs[i + 1][j + 1] + 1 } else { lcs[i + 1][j].max(lcs[i][j + 1]) };
+        }
+    }
+    // The edit script: (mark, line, line number in A).
+    let mut ops: Vec<(char, &str, usize)> = Vec::new();
+    let (mut i, mut j) = (0, 0);
+    while i < n || j < m {
+        if i < n && j < m && x[i] == y[j] {
+            ops.push((' ', x[i], i + 1));
+            (i, j) = (i + 1, j + 1);
+        } else if j < m && (i == n || lcs[i][j + 1] > lcs[i + 1][j]) {
+            ops.push(('+', y[j], i + 1));
+            j += 1;
+        } else {
+            ops.push(('-', x[i], i + 1));
+            i += 1;
+        }
+    }
+    let near = |k: usize| ops[k.saturating_sub(1)..(k + 2).min(ops.len())].iter().any(|o| o.0 != ' ');
+    let mut out = Vec::new();
+    let mut last: Option<usize> = None;
+    for (k, op) in ops.iter().enumerate() {
+        if !near(k) {
+            continue;
+        }
+        if last.is_none_or(|l| l + 1 != k) {
+            out.push(format!("@@ line {}", op.2));
+        }
+        out.push(format!("{}{}", op.0, op.1));
+        last = Some(k);
+    }
+    out
+}
+
 /// Per-column tolerances (absolute, in the column's unit); columns not named
 /// use `default` (0: exact).
 #[derive(Clone, Debug, Default, PartialEq)]
@@ -39,9 +87,22 @@ pub struct Tolerances {
 }
 
 impl Tolerances {
-    /// Tolerance of a column.
+    /// Tolerance of a column: its own entry, else the first pattern
+    /// (`*`, `?`) that matches it, else the default.
     pub fn of(&self, column: &str) -> f64 {
-        self.per_column.get(column).copied().unwrap_or(self.default)
+        self.per_column.get(column).or_else(|| self.per_column.iter().find(|(k, _)| is_pattern(k) && crate::io::glob_match(k, column)).map(|(_, v)| v)).copied().unwrap_or(self.default)
+    }
+
+    /// Fails on an entry that names no column of either file (a typo would
+    /// otherwise leave the column compared exactly without notice).
+    pub fn check_columns(&self, columns: &[&str]) -> Result<(), DiffError> {
+        for k in self.per_column.keys() {
+            let hit = if is_pattern(k) { columns.iter().any(|c| crate::io::glob_match(k, c)) } else { columns.contains(&k.as_str()) };
+            if !hit {
+                return Err(DiffError::Tolerance(format!("'{k}' matches no column of either file (columns: {})", columns.join(", "))));
+            }
+        }
+        Ok(())
     }
 
     /// Parses `COLUMN=VALUE`.
@@ -258,13 +319,13 @@ fn as_text(c: &Column) -> Vec<Option<String>> {
 
 /// Provenance keys that record results of the run.
 fn is_result(key: &str) -> bool {
-    key.starts_with("lapse.residuals.") || key.starts_with("lapse.rows.")
+    key.starts_with("lapse.residuals.") || key.starts_with("lapse.rows.") || key.starts_with("lapse.plot.")
 }
 
 /// Provenance keys that can explain a numeric difference: inputs, constants,
 /// pipeline text — not the version, revision, run time or file locations.
 fn explains(key: &str) -> bool {
-    !(is_result(key) || key == "lapse.version" || key == "lapse.source_revision" || key == "lapse.run.started_utc" || key == "lapse.pipeline.path" || key.ends_with(".path"))
+    !(is_result(key) || key == "lapse.version" || key == "lapse.source_revision" || key == "lapse.run.started_utc" || key == "lapse.pipeline.path" || key.ends_with("path"))
 }
 
 /// Index of keys → row, refusing duplicates (borrows the key buffer).
@@ -313,6 +374,9 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
             return Err(DiffError::NoKey { path: path_b.into(), column: k.clone() });
         }
     }
+    let mut all_columns: Vec<&str> = sa.iter().chain(&sb).map(|(n, _)| n.as_str()).collect();
+    all_columns.dedup();
+    tol.check_columns(&all_columns)?;
     let ka = key_buf(&read_columns(path_a, keys)?, keys, path_a)?;
     let kb = key_buf(&read_columns(path_b, keys)?, keys, path_b)?;
     check_unique(&ka, path_a)?;
@@ -424,7 +488,7 @@ pub fn diff(path_a: &Path, path_b: &Path, keys: &[String], tol: &Tolerances, wan
     let all: std::collections::BTreeSet<&String> = ma.keys().chain(mb.keys()).filter(|k| k.starts_with("lapse.")).collect();
     for k in all {
         let (a, b) = (ma.get(k), mb.get(k));
-        if a != b && k != "lapse.run.started_utc" {
+        if a != b && k != "lapse.run.started_utc" && k != "lapse.run.id" {
             report.provenance.push(ProvenanceChange { key: k.clone(), a: a.cloned(), b: b.cloned(), explains: explains(k), is_result: is_result(k) });
         }
     }
@@ -523,10 +587,17 @@ pub fn render(r: &DiffReport, markdown: bool) -> String {
     }
     s.push('\n');
     if r.provenance.is_empty() {
-        let _ = writeln!(s, "provenance: identical (apart from the run start time)");
+        let _ = writeln!(s, "provenance: identical (apart from the run's start time and id)");
     } else {
         let _ = writeln!(s, "{h}provenance entries that differ:");
         for p in &r.provenance {
+            if p.key == "lapse.pipeline.text" {
+                let _ = writeln!(s, "  [explains] lapse.pipeline.text (unified diff, A → B):");
+                for l in unified_diff(p.a.as_deref().unwrap_or(""), p.b.as_deref().unwrap_or("")) {
+                    let _ = writeln!(s, "    {l}");
+                }
+                continue;
+            }
             let short = |v: &Option<String>| {
                 v.as_deref().map(|x| if x.len() > 60 { format!("{}…", &x[..x.char_indices().nth(60).map(|c| c.0).unwrap_or(x.len())]) } else { x.to_string() }).unwrap_or_else(|| "(absent)".into())
             };
@@ -548,4 +619,28 @@ pub fn render(r: &DiffReport, markdown: bool) -> String {
     }
     let _ = writeln!(s, "\nresult: {}", if r.within_tolerance() { "WITHIN TOLERANCE" } else { "DIFFERENCES BEYOND TOLERANCE" });
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn unified_diff_shows_changed_lines_with_context() {
+        let a = "kind = \"pulsar\"\n[dispersion]\nmeasure_pc_cm3 = 41.27\n[output]\npath = \"x\"\n";
+        let b = a.replace("41.27", "41.30");
+        let d = unified_diff(a, &b);
+        assert_eq!(d, ["@@ line 2", " [dispersion]", "-measure_pc_cm3 = 41.27", "+measure_pc_cm3 = 41.30", " [output]"]);
+        assert!(unified_diff(a, a).is_empty());
+    }
+
+    #[test]
+    fn tolerance_patterns_and_unknown_columns() {
+        let mut t = Tolerances::default();
+        t.add_arg("shapiro_*=1e-12").unwrap();
+        t.add_arg("residual_s=1e-9").unwrap();
+        assert_eq!((t.of("shapiro_sun_s"), t.of("residual_s"), t.of("roemer_s")), (1e-12, 1e-9, 0.0));
+        assert!(t.check_columns(&["shapiro_sun_s", "residual_s"]).is_ok());
+        assert!(t.check_columns(&["residual_s"]).unwrap_err().to_string().contains("shapiro_*"));
+    }
 }

@@ -489,6 +489,13 @@ impl Kind for Pulsar {
         Ok(base)
     }
 
+    fn output_columns(&self) -> Vec<String> {
+        let mut c: Vec<String> = ["tdb_mjd_day", "tdb_mjd_frac", "bat_mjd_day", "bat_mjd_frac", "clock_s", "einstein_s", "roemer_s", "parallax_s", "shapiro_s"].map(String::from).into();
+        c.extend(self.ctx.shapiro.iter().map(|b| format!("shapiro_{}_s", b.name)));
+        c.extend(["dispersion_s", "residual_s", "pulse_number", "clock_extrapolated", "eop_predicted"].map(String::from));
+        c
+    }
+
     fn loaded(&self) -> String {
         format!("kernels, EOP, stations{} loaded", if self.ctx.clocks.is_empty() { "" } else { ", clock tables" })
     }

@@ -150,6 +150,12 @@ impl Kind for Timescales {
         Ok(prov)
     }
 
+    fn output_columns(&self) -> Vec<String> {
+        let mut c: Vec<String> = self.out_scales.iter().flat_map(|s| [format!("{}_mjd_day", s.name()), format!("{}_mjd_frac", s.name())]).collect();
+        c.extend(["tt_minus_utc_s", "tdb_minus_tt_s"].map(String::from));
+        c
+    }
+
     fn loaded(&self) -> String {
         format!("leap-second table {} loaded", self.ts.leap_seconds().source_name())
     }

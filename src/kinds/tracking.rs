@@ -96,6 +96,30 @@ pub struct Tracking {
 /// An epoch as (MJD day, fraction of the day).
 type DayFrac = (i64, f64);
 
+/// The computed columns, in output order.
+const OUTPUT_COLUMNS: [&str; 20] = [
+    "computed_s",
+    "computed_hz",
+    "residual_s",
+    "residual_hz",
+    "value_s",
+    "value_hz",
+    "sigma_s",
+    "sigma_hz",
+    "light_time_down_s",
+    "light_time_up_s",
+    "shapiro_down_s",
+    "shapiro_up_s",
+    "clock_rx_s",
+    "clock_tx_s",
+    "bounce_tdb_mjd_day",
+    "bounce_tdb_mjd_frac",
+    "tx_mjd_day",
+    "tx_mjd_frac",
+    "elevation_rx_deg",
+    "troposphere_s",
+];
+
 /// True for Doppler observables (values in Hz), by their input name.
 fn is_doppler(kind: &str) -> bool {
     kind.starts_with("doppler")
@@ -282,6 +306,10 @@ impl Kind for Tracking {
             },
         );
         Ok(base)
+    }
+
+    fn output_columns(&self) -> Vec<String> {
+        OUTPUT_COLUMNS.map(String::from).into()
     }
 
     fn loaded(&self) -> String {

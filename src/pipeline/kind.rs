@@ -88,6 +88,11 @@ pub trait Kind: Send + std::fmt::Debug {
     /// shared input files, constants and model parameters.
     fn provenance(&self, file: &PipelineFile) -> Result<Provenance, PipelineError>;
 
+    /// The computed columns `process` adds to the output (the kernel refuses
+    /// input columns with these names, or `reason_code` / `reason`, before
+    /// computing: they would be overwritten or clash).
+    fn output_columns(&self) -> Vec<String>;
+
     /// One line for the preflight report on what was loaded.
     fn loaded(&self) -> String;
 

@@ -58,11 +58,13 @@ pub struct RunOptions {
     pub plots: bool,
     /// Redo partitions whose outputs are up to date.
     pub force: bool,
+    /// Where the current phase is published (progress displays).
+    pub phase: Option<std::sync::Arc<std::sync::atomic::AtomicU8>>,
 }
 
 impl Default for RunOptions {
     fn default() -> Self {
-        Self { input: None, output: None, exec: crate::parallel::Exec::default(), plots: true, force: false }
+        Self { input: None, output: None, exec: crate::parallel::Exec::default(), plots: true, force: false, phase: None }
     }
 }
 
@@ -77,6 +79,6 @@ pub fn run_kind(file: &PipelineFile, kind: &mut dyn Kind, opts: &RunOptions, on_
     kind.override_paths(opts.input.clone(), opts.output.clone());
     let base = kind.provenance(file)?;
     let (input, output): (PathBuf, PathBuf) = (kind.input_path().into(), kind.output_path().into());
-    let popts = stream::PartitionOptions { exec: opts.exec.clone(), plots: opts.plots };
+    let popts = stream::PartitionOptions { exec: opts.exec.clone(), plots: opts.plots, phase: opts.phase.clone() };
     for_each_partition(&input, &output, &base, opts.force, |inp: &Path, out: &Path, prov| stream::run_partition(kind, inp, out, prov, &popts, on_report))
 }

@@ -26,7 +26,7 @@ pub fn resolve_inputs(p: &Path) -> Result<(Vec<PathBuf>, bool), PipelineError> {
     let entries = std::fs::read_dir(&dir).map_err(|source| PipelineError::Folder { path: dir.clone(), source })?;
     let mut files: Vec<PathBuf> = entries
         .filter_map(|e| e.ok().map(|e| e.path()))
-        .filter(|f| f.is_file() && f.file_name().map(|n| glob_match(&pattern, &n.to_string_lossy())).unwrap_or(false))
+        .filter(|f| f.is_file() && f.file_name().map(|n| crate::io::glob_match(&pattern, &n.to_string_lossy())).unwrap_or(false))
         .filter(|f| !super::commit::is_partial(f))
         .collect();
     files.sort();
@@ -34,32 +34,6 @@ pub fn resolve_inputs(p: &Path) -> Result<(Vec<PathBuf>, bool), PipelineError> {
         return Err(PipelineError::Input { path: p.into(), message: format!("no input files match {}", p.display()) });
     }
     Ok((files, true))
-}
-
-/// Shell-style match of `*` and `?` within one file name.
-fn glob_match(pattern: &str, name: &str) -> bool {
-    let (p, n): (Vec<char>, Vec<char>) = (pattern.chars().collect(), name.chars().collect());
-    let (mut pi, mut ni, mut star, mut mark) = (0usize, 0usize, None::<usize>, 0usize);
-    while ni < n.len() {
-        if pi < p.len() && (p[pi] == '?' || p[pi] == n[ni]) {
-            pi += 1;
-            ni += 1;
-        } else if pi < p.len() && p[pi] == '*' {
-            star = Some(pi);
-            mark = ni;
-            pi += 1;
-        } else if let Some(s) = star {
-            pi = s + 1;
-            mark += 1;
-            ni = mark;
-        } else {
-            return false;
-        }
-    }
-    while pi < p.len() && p[pi] == '*' {
-        pi += 1;
-    }
-    pi == p.len()
 }
 
 /// Output file of a partition: `<output folder>/<input stem>.parquet`.
@@ -144,6 +118,7 @@ where
         let mut prov = base.clone();
         let obs_sha = super::sha256_file(inp)?;
         prov.set("input.observations.0.path", &inp.display().to_string());
+        prov.set("input.observations.0.canonical_path", &super::provenance::canonical(inp));
         prov.set("input.observations.0.sha256", &obs_sha);
         if partitioned && !force && up_to_date(&out, &prov) {
             total.notes.push(format!("partition {}: up to date, skipped", inp.display()));

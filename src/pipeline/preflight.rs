@@ -14,7 +14,7 @@ use polars::prelude::DataFrame;
 
 use super::PipelineError;
 use super::kind::Kind;
-use super::table::{IdChecker, ids, parquet_rows, read_parquet_slice};
+use super::table::{IdChecker, check_input_names, ids, parquet_rows, read_parquet_slice};
 use crate::earth::{EarthModel, StationCatalog};
 use crate::ephemeris::{Ephemeris, TdbSeconds, body_name};
 use crate::reject::{Reject, RejectCode};
@@ -183,6 +183,7 @@ pub const SCAN_SLICE_ROWS: usize = 500_000;
 /// `first_row`): its ids into `ids` and the kind's typed columns and facts.
 pub fn scan_frame(kind: &dyn Kind, df: &DataFrame, path: &Path, first_row: usize, facts: &mut Facts, id_check: &mut IdChecker) -> Result<(), PipelineError> {
     id_check.check(&ids(df, path)?, first_row, path)?;
+    check_input_names(df, &kind.output_columns(), path)?;
     kind.scan(df, path, facts)
 }
 

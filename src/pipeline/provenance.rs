@@ -37,7 +37,27 @@ impl Provenance {
         p.set("pipeline.kind", &file.kind);
         p.set("pipeline.sha256", &file.sha256);
         p.set("pipeline.text", &file.text);
+        // Every value of the pipeline as its own entry (`param.<table>.<key>`),
+        // so that a changed model parameter shows by name in `lapse diff`.
+        if let Ok(table) = toml::from_str::<toml::Table>(&file.text) {
+            for (k, v) in &table {
+                if k != "kind" {
+                    p.set_params(k, v);
+                }
+            }
+        }
         p
+    }
+
+    fn set_params(&mut self, key: &str, v: &toml::Value) {
+        match v {
+            toml::Value::Table(t) => t.iter().for_each(|(k, v)| self.set_params(&format!("{key}.{k}"), v)),
+            toml::Value::Array(a) => a.iter().enumerate().for_each(|(i, v)| self.set_params(&format!("{key}.{i}"), v)),
+            toml::Value::String(s) => self.set(&format!("param.{key}"), s),
+            // Shortest round-trip form (`-6.31e-16`, not 18 decimals).
+            toml::Value::Float(f) => self.set(&format!("param.{key}"), &format!("{f:?}")),
+            other => self.set(&format!("param.{key}"), &other.to_string()),
+        }
     }
 
     /// Sets `lapse.<key>`.
@@ -53,6 +73,7 @@ impl Provenance {
         *n += 1;
         let (len, digest) = crate::io::digest::file_digest(path).map_err(|source| IoError::Open { path: path.into(), source })?;
         self.set(&format!("{key}.path"), &path.display().to_string());
+        self.set(&format!("{key}.canonical_path"), &canonical(path));
         self.set(&format!("{key}.bytes"), &len.to_string());
         self.set(&format!("{key}.sha256"), &digest);
         if !coverage.is_empty() {
@@ -78,6 +99,11 @@ impl Provenance {
     pub fn finish(self) -> Vec<(String, String)> {
         self.entries
     }
+}
+
+/// The canonical absolute form of a path (as given when it cannot be resolved).
+pub fn canonical(path: &Path) -> String {
+    std::fs::canonicalize(path).unwrap_or_else(|_| path.to_path_buf()).display().to_string()
 }
 
 /// Coverage text of a leap-second table.

@@ -11,7 +11,7 @@ use super::commit::Commit;
 use super::kind::{Kind, Processed};
 use super::partition::rejects_path;
 use super::preflight::{Facts, Level, Preflight, check_partition, scan_file, scan_frame};
-use super::table::{IdChecker, check_unique_ids, ids, parquet_rows, read_parquet_slice};
+use super::table::{IdChecker, check_input_names, check_unique_ids, ids, parquet_rows, read_parquet_slice};
 use super::tally::{Tally, plot, summarise};
 use super::{PipelineError, Provenance, RunSummary};
 use crate::io::{IoError, read_parquet, write_parquet_file};
@@ -28,12 +28,47 @@ fn env_usize(name: &str, default: usize) -> usize {
     std::env::var(name).ok().and_then(|v| v.parse().ok()).filter(|v: &usize| *v > 0).unwrap_or(default)
 }
 
+/// What a run is doing, for progress displays.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[repr(u8)]
+pub enum Phase {
+    Reading = 0,
+    Computing = 1,
+    Plotting = 2,
+    Writing = 3,
+}
+
+impl Phase {
+    /// Every phase, by its number.
+    pub const ALL: [Phase; 4] = [Phase::Reading, Phase::Computing, Phase::Plotting, Phase::Writing];
+
+    /// A label for displays.
+    pub fn label(self) -> &'static str {
+        match self {
+            Phase::Reading => "reading",
+            Phase::Computing => "computing",
+            Phase::Plotting => "plotting",
+            Phase::Writing => "writing",
+        }
+    }
+}
+
 /// How partitions are run.
 #[derive(Clone, Debug)]
 pub struct PartitionOptions {
     pub exec: Exec,
     /// Write residual plots beside the outputs.
     pub plots: bool,
+    /// Where the current [`Phase`] is published (for progress displays).
+    pub phase: Option<std::sync::Arc<std::sync::atomic::AtomicU8>>,
+}
+
+impl PartitionOptions {
+    fn enter(&self, p: Phase) {
+        if let Some(a) = &self.phase {
+            a.store(p as u8, std::sync::atomic::Ordering::Relaxed);
+        }
+    }
 }
 
 /// Called with each partition's preflight report before it is computed;
@@ -44,6 +79,7 @@ pub type OnReport<'a> = dyn FnMut(&Path, &Preflight) -> Result<(), PipelineError
 /// duplicate fails the batch all the same, only after the work).
 pub fn process_checked(kind: &mut dyn Kind, df: &DataFrame, source: &Path, exec: &Exec) -> Result<Processed, PipelineError> {
     let ids = ids(df, source)?;
+    check_input_names(df, &kind.output_columns(), source)?;
     let (unique, processed) = rayon::join(|| check_unique_ids(&ids, source), || kind.process(df, source, exec));
     unique?;
     processed
@@ -71,6 +107,7 @@ fn finish(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provenance, of
 /// Everything is written through one [`Commit`].
 pub fn run_partition(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov: Provenance, opts: &PartitionOptions, on_report: &mut OnReport) -> Result<RunSummary, PipelineError> {
     let mut commit = Commit::begin(output)?;
+    opts.enter(Phase::Reading);
     let n_rows = parquet_rows(input)?;
     let streamed = kind.streams() && n_rows > env_usize("LAPSE_STREAM_ROWS", STREAM_ABOVE_ROWS);
     let t0 = std::time::Instant::now();
@@ -87,6 +124,7 @@ pub fn run_partition(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov:
     let mut report = Preflight::default();
     check_partition(kind, &mut report, input, &facts);
     on_report(input, &report)?;
+    opts.enter(Phase::Computing);
     prov.set("run.id", commit.run_id());
     prov.set("input.observations.0.bytes", &std::fs::metadata(input).map(|m| m.len()).unwrap_or(0).to_string());
     let mut summary = RunSummary { output: output.into(), rejects: rejects_path(output), ..Default::default() };
@@ -104,9 +142,22 @@ pub fn run_partition(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov:
 /// The summary, provenance and plots of a complete partition: the plots are
 /// staged and their SHA-256 recorded, so the up-to-date check can tell they
 /// belong to the output.
-fn finish_partition(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provenance, offsets: &[(&'static str, f64)], output: &Path, plots: bool, commit: &mut Commit) -> Result<(), PipelineError> {
+#[allow(clippy::too_many_arguments)]
+fn finish_partition(
+    tally: &mut Tally,
+    summary: &mut RunSummary,
+    prov: &mut Provenance,
+    offsets: &[(&'static str, f64)],
+    output: &Path,
+    plots: bool,
+    phase: Option<&std::sync::Arc<std::sync::atomic::AtomicU8>>,
+    commit: &mut Commit,
+) -> Result<(), PipelineError> {
     finish(tally, summary, prov, offsets);
     if plots {
+        if let Some(a) = &phase {
+            a.store(Phase::Plotting as u8, std::sync::atomic::Ordering::Relaxed);
+        }
         for (staged, fin) in plot(tally, output, commit)? {
             let bytes = std::fs::read(&staged).map_err(|e| IoError::Write { path: staged.clone(), message: e.to_string() })?;
             // Keyed by the name after the output's stem (`residuals.png`),
@@ -139,7 +190,8 @@ fn in_memory(
         subtract(&mut out, col, *offset, input)?;
     }
     (summary.rows_in, summary.rows_out, summary.rows_rejected) = (df.height(), out.height(), rej.height());
-    finish_partition(&mut tally, summary, &mut prov, &offsets, output, opts.plots, commit)?;
+    finish_partition(&mut tally, summary, &mut prov, &offsets, output, opts.plots, opts.phase.as_ref(), commit)?;
+    opts.enter(Phase::Writing);
     let metadata = prov.finish();
     write_parquet_file(&mut rej, &commit.stage(&rejects_path(output)), &metadata)?;
     write_parquet_file(&mut out, &commit.stage(output), &metadata)?;
@@ -210,7 +262,8 @@ fn in_slices(
         close(wr, &tmp_rej)?;
     }
     let offsets = tally.remove_means();
-    finish_partition(&mut tally, summary, &mut prov, &offsets, output, opts.plots, commit)?;
+    finish_partition(&mut tally, summary, &mut prov, &offsets, output, opts.plots, opts.phase.as_ref(), commit)?;
+    opts.enter(Phase::Writing);
     let metadata = prov.finish();
     // Pass 2: final files, offsets removed, full metadata.
     for (tmp, fin, n, fix) in [(&tmp_rej, rejects_path(output), summary.rows_rejected, false), (&tmp_out, output.to_path_buf(), summary.rows_out, true)] {

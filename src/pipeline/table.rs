@@ -21,10 +21,31 @@ pub fn check_unique_ids<S: AsRef<str>>(ids: &[Option<S>], path: &Path) -> Result
             return Err(IoError::Value { path: path.into(), column: "obs_id".into(), row, message: "null obs_id".into() }.into());
         };
         if let Some(first) = seen.insert(id, row) {
-            return Err(PipelineError::DuplicateId { path: path.into(), obs_id: id.into(), first, second: row });
+            return Err(PipelineError::DuplicateId { path: path.into(), obs_id: clip(id), first, second: row });
         }
     }
     Ok(())
+}
+
+/// Fails on an input column whose name an output column of the kind (or
+/// the rejects table's `reason_code` / `reason`) takes.
+pub fn check_input_names(df: &DataFrame, computed: &[String], path: &Path) -> Result<(), PipelineError> {
+    for c in df.get_column_names() {
+        let c = c.as_str();
+        if c != "obs_id" && (computed.iter().any(|o| o == c) || c == "reason_code" || c == "reason") {
+            return Err(PipelineError::Input { path: path.into(), message: format!("input column '{c}' has the name of a column lapse writes: rename it (it would be overwritten)") });
+        }
+    }
+    Ok(())
+}
+
+/// Truncates a text for messages (ids of any length may come from outside).
+pub fn clip(s: &str) -> String {
+    const MAX_CHARS: usize = 80;
+    match s.char_indices().nth(MAX_CHARS) {
+        Some((i, _)) => format!("{}… ({} bytes)", &s[..i], s.len()),
+        None => s.to_string(),
+    }
 }
 
 /// The `obs_id` column of a frame (borrowed), type-checked.
@@ -101,7 +122,7 @@ impl IdChecker {
                 };
                 let (a, b) = (id(w[0].1)?, id(w[1].1)?);
                 if a == b {
-                    return Err(PipelineError::DuplicateId { path: path.into(), obs_id: a, first: w[0].1 as usize, second: w[1].1 as usize });
+                    return Err(PipelineError::DuplicateId { path: path.into(), obs_id: clip(&a), first: w[0].1 as usize, second: w[1].1 as usize });
                 }
             }
         }
