@@ -4,6 +4,8 @@
 //!
 //! Vectors are BCRS (ICRF axes), metres; times in seconds; GM in m³/s².
 
+pub mod binary;
+
 use nalgebra::Vector3;
 
 /// Speed of light, m/s (SI, exact).

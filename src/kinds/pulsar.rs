@@ -9,6 +9,7 @@ use polars::prelude::*;
 use serde::Deserialize;
 
 use crate::constants::Constants;
+use crate::delays::binary::{BinaryModel, BinaryOrbit};
 use crate::delays::{DISPERSION_K_S_MHZ2_CM3_PC, MAS_TO_RAD, Source};
 use crate::io::Columns;
 use crate::parallel::Exec;
@@ -18,7 +19,7 @@ use crate::pipeline::table::assemble;
 use crate::pipeline::tally::{PlotSpec, ResidualSet, Tally, Unit};
 use crate::pipeline::{IoPaths, Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
 use crate::pulsar::clock::ClockTable;
-use crate::pulsar::{Arrival, ArrivalResult, PulsarContext, SpinModel, shapiro_bodies};
+use crate::pulsar::{Arrival, ArrivalResult, Binary, PulsarContext, SpinModel, shapiro_bodies};
 use crate::reject::{Reject, RejectCode};
 use crate::stats::gaussian;
 use crate::time::TimeScale;
@@ -74,6 +75,152 @@ struct DispersionCfg {
     measure_pc_cm3: f64,
 }
 
+/// `[binary]`: the orbit of a binary pulsar (README, "Binary pulsars").
+/// Keys a model does not use are errors naming them.
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct BinaryCfg {
+    model: String,
+    period_d: Option<f64>,
+    period_derivative: Option<f64>,
+    projected_axis_lt_s: Option<f64>,
+    projected_axis_derivative: Option<f64>,
+    eccentricity: Option<f64>,
+    eccentricity_derivative_per_s: Option<f64>,
+    periastron_epoch_mjd: Option<f64>,
+    periastron_longitude_deg: Option<f64>,
+    periastron_advance_deg_per_yr: Option<f64>,
+    einstein_amplitude_s: Option<f64>,
+    companion_mass_msun: Option<f64>,
+    sin_inclination: Option<f64>,
+    radial_deformation: Option<f64>,
+    angular_deformation: Option<f64>,
+    aberration_a_s: Option<f64>,
+    aberration_b_s: Option<f64>,
+    ascending_node_epoch_mjd: Option<f64>,
+    e_sin_omega: Option<f64>,
+    e_cos_omega: Option<f64>,
+}
+
+impl BinaryCfg {
+    /// The keys given, by name.
+    fn given(&self) -> Vec<(&'static str, Option<f64>)> {
+        vec![
+            ("period_d", self.period_d),
+            ("period_derivative", self.period_derivative),
+            ("projected_axis_lt_s", self.projected_axis_lt_s),
+            ("projected_axis_derivative", self.projected_axis_derivative),
+            ("eccentricity", self.eccentricity),
+            ("eccentricity_derivative_per_s", self.eccentricity_derivative_per_s),
+            ("periastron_epoch_mjd", self.periastron_epoch_mjd),
+            ("periastron_longitude_deg", self.periastron_longitude_deg),
+            ("periastron_advance_deg_per_yr", self.periastron_advance_deg_per_yr),
+            ("einstein_amplitude_s", self.einstein_amplitude_s),
+            ("companion_mass_msun", self.companion_mass_msun),
+            ("sin_inclination", self.sin_inclination),
+            ("radial_deformation", self.radial_deformation),
+            ("angular_deformation", self.angular_deformation),
+            ("aberration_a_s", self.aberration_a_s),
+            ("aberration_b_s", self.aberration_b_s),
+            ("ascending_node_epoch_mjd", self.ascending_node_epoch_mjd),
+            ("e_sin_omega", self.e_sin_omega),
+            ("e_cos_omega", self.e_cos_omega),
+        ]
+    }
+
+    /// The orbit and its reference epoch (MJD, TDB), checked: required keys
+    /// present, no key of another model, values in their physical ranges.
+    fn orbit(&self, file: &PipelineFile, t_sun_s: f64) -> Result<(BinaryOrbit, f64), PipelineError> {
+        let model = match self.model.as_str() {
+            "keplerian" => BinaryModel::Keplerian,
+            "relativistic" => BinaryModel::Relativistic,
+            "near_circular" => BinaryModel::NearCircular,
+            other => return Err(file.invalid(format!("[binary] model = \"{other}\": use \"keplerian\", \"relativistic\" or \"near_circular\""))),
+        };
+        let all = ["period_d", "period_derivative", "projected_axis_lt_s", "projected_axis_derivative", "companion_mass_msun", "sin_inclination"];
+        let (required, allowed): (&[&str], Vec<&str>) = match model {
+            BinaryModel::Keplerian => (
+                &["period_d", "projected_axis_lt_s", "eccentricity", "periastron_epoch_mjd", "periastron_longitude_deg"],
+                [&all[..], &["eccentricity", "eccentricity_derivative_per_s", "periastron_epoch_mjd", "periastron_longitude_deg", "periastron_advance_deg_per_yr", "einstein_amplitude_s"]].concat(),
+            ),
+            BinaryModel::Relativistic => (
+                &["period_d", "projected_axis_lt_s", "eccentricity", "periastron_epoch_mjd", "periastron_longitude_deg"],
+                [
+                    &all[..],
+                    &[
+                        "eccentricity",
+                        "eccentricity_derivative_per_s",
+                        "periastron_epoch_mjd",
+                        "periastron_longitude_deg",
+                        "periastron_advance_deg_per_yr",
+                        "einstein_amplitude_s",
+                        "radial_deformation",
+                        "angular_deformation",
+                        "aberration_a_s",
+                        "aberration_b_s",
+                    ],
+                ]
+                .concat(),
+            ),
+            BinaryModel::NearCircular => {
+                (&["period_d", "projected_axis_lt_s", "ascending_node_epoch_mjd", "e_sin_omega", "e_cos_omega"], [&all[..], &["ascending_node_epoch_mjd", "e_sin_omega", "e_cos_omega"]].concat())
+            }
+        };
+        let given = self.given();
+        for (k, v) in &given {
+            if v.is_some() && !allowed.contains(k) {
+                return Err(file.invalid(format!("[binary] {k} does not apply to model \"{}\"", self.model)));
+            }
+        }
+        for k in required {
+            if given.iter().any(|(g, v)| g == k && v.is_none()) {
+                return Err(file.invalid(format!("[binary] model \"{}\" needs {k}", self.model)));
+            }
+        }
+        let yr_s = 365.25 * 86_400.0;
+        let period_s = file.check_range("[binary] period_d", self.period_d.unwrap_or(0.0), 1e-3, 1e6)? * 86_400.0;
+        let x_s = file.check_range("[binary] projected_axis_lt_s", self.projected_axis_lt_s.unwrap_or(0.0), 0.0, 1e4)?;
+        let e = match model {
+            BinaryModel::NearCircular => {
+                let (eta, kappa) =
+                    (file.check_range("[binary] e_sin_omega", self.e_sin_omega.unwrap_or(0.0), -0.1, 0.1)?, file.check_range("[binary] e_cos_omega", self.e_cos_omega.unwrap_or(0.0), -0.1, 0.1)?);
+                (eta * eta + kappa * kappa).sqrt()
+            }
+            _ => self.eccentricity.unwrap_or(0.0),
+        };
+        if !(e.is_finite() && (0.0..1.0).contains(&e)) {
+            return Err(file.invalid(format!("[binary] eccentricity = {e} must satisfy 0 ≤ e < 1")));
+        }
+        let s = file.check_range("[binary] sin_inclination", self.sin_inclination.unwrap_or(0.0), -1.0, 1.0)?;
+        let m2 = file.check_range("[binary] companion_mass_msun", self.companion_mass_msun.unwrap_or(0.0), 0.0, 1e3)?;
+        let small = |k: &str, v: Option<f64>, bound: f64| file.check_range(&format!("[binary] {k}"), v.unwrap_or(0.0), -bound, bound);
+        let epoch_key =
+            if model == BinaryModel::NearCircular { ("[binary] ascending_node_epoch_mjd", self.ascending_node_epoch_mjd) } else { ("[binary] periastron_epoch_mjd", self.periastron_epoch_mjd) };
+        let epoch_mjd = file.check_range(epoch_key.0, epoch_key.1.unwrap_or(f64::NAN), MJD_RANGE.0, MJD_RANGE.1)?;
+        let orbit = BinaryOrbit {
+            model,
+            period_s,
+            period_derivative: small("period_derivative", self.period_derivative, 1e-6)?,
+            x_s,
+            x_dot: small("projected_axis_derivative", self.projected_axis_derivative, 1e-6)?,
+            eccentricity: e,
+            eccentricity_dot_per_s: small("eccentricity_derivative_per_s", self.eccentricity_derivative_per_s, 1e-6)?,
+            omega_rad: file.check_range("[binary] periastron_longitude_deg", self.periastron_longitude_deg.unwrap_or(0.0), -360.0, 360.0)?.to_radians(),
+            omega_dot_rad_per_s: small("periastron_advance_deg_per_yr", self.periastron_advance_deg_per_yr, 1e3)?.to_radians() / yr_s,
+            gamma_s: small("einstein_amplitude_s", self.einstein_amplitude_s, 1.0)?,
+            shapiro_range_s: t_sun_s * m2,
+            shapiro_shape: s,
+            delta_r: small("radial_deformation", self.radial_deformation, 1.0)?,
+            delta_theta: small("angular_deformation", self.angular_deformation, 1.0)?,
+            aberration_a_s: small("aberration_a_s", self.aberration_a_s, 1.0)?,
+            aberration_b_s: small("aberration_b_s", self.aberration_b_s, 1.0)?,
+            eta: self.e_sin_omega.unwrap_or(0.0),
+            kappa: self.e_cos_omega.unwrap_or(0.0),
+        };
+        Ok((orbit, epoch_mjd))
+    }
+}
+
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct CorrectionsCfg {
@@ -103,11 +250,15 @@ pub struct PulsarPipeline {
     source: SourceCfg,
     spin: SpinCfg,
     dispersion: Option<DispersionCfg>,
+    binary: Option<BinaryCfg>,
     corrections: Option<CorrectionsCfg>,
     #[serde(default)]
     residuals: ResidualsCfg,
     output: OutputCfg,
 }
+
+/// The binary columns, in output order (present when `[binary]` is).
+const BINARY_COLUMNS: [&str; 6] = ["binary_roemer_s", "binary_einstein_s", "binary_shapiro_s", "binary_aberration_s", "binary_s", "orbital_phase"];
 
 /// Epochs a pulsar model may name (source position, spin), MJD: 1900-01-01
 /// to 2100-01-01, the span the ephemerides and time-scale models here serve.
@@ -218,7 +369,19 @@ impl Pulsar {
         if !ppn_gamma.is_finite() {
             return Err(invalid("[corrections] ppn_gamma must be finite".into()));
         }
-        let ctx = PulsarContext { ephemeris, earth, stations, clocks, input_is_site_clock, allow_clock_extrapolation: cfg.clocks.allow_extrapolation, source, spin, dm_pc_cm3, shapiro, ppn_gamma };
+        let binary = match &cfg.binary {
+            Some(b) => {
+                // T☉ = GM☉/c³ with the pipeline's GM☉ (Shapiro range r = T☉ m₂).
+                let gm_sun_m3_s2 = constants.ephemeris.gm_km3_s2("sun").ok_or_else(|| invalid("[binary] the ephemeris constants have no GM of the Sun".into()))? * 1e9;
+                let t_sun_s = gm_sun_m3_s2 / crate::delays::C_M_S.powi(3);
+                let (orbit, epoch_mjd) = b.orbit(file, t_sun_s)?;
+                let epoch = earth.time.epoch_from_mjd(TimeScale::Tdb, epoch_mjd.floor() as i64, epoch_mjd - epoch_mjd.floor()).map_err(|e| invalid(format!("[binary] reference epoch: {e}")))?;
+                Some(Binary { orbit, epoch })
+            }
+            None => None,
+        };
+        let ctx =
+            PulsarContext { ephemeris, earth, stations, clocks, input_is_site_clock, allow_clock_extrapolation: cfg.clocks.allow_extrapolation, source, spin, dm_pc_cm3, shapiro, ppn_gamma, binary };
         Ok(Pulsar { ctx, paths: IoPaths::resolve(file, &cfg.input.path, &cfg.output.path), subtract_weighted_mean: cfg.residuals.subtract_weighted_mean, inputs, constants })
     }
 
@@ -360,6 +523,15 @@ impl Pulsar {
             computed.push(col_f(&format!("shapiro_{}_s", b.name), next_col()));
         }
         computed.push(col_f("dispersion_s", dispersion_s));
+        if self.ctx.binary.is_some() {
+            let b = |f: &dyn Fn(&crate::delays::binary::BinaryDelays) -> f64| good.iter().map(|g| g.binary.as_ref().map_or(f64::NAN, f)).collect::<Vec<f64>>();
+            computed.push(col_f("binary_roemer_s", b(&|d| d.roemer_s)));
+            computed.push(col_f("binary_einstein_s", b(&|d| d.einstein_s)));
+            computed.push(col_f("binary_shapiro_s", b(&|d| d.shapiro_s)));
+            computed.push(col_f("binary_aberration_s", b(&|d| d.aberration_s)));
+            computed.push(col_f("binary_s", b(&|d| d.total_s)));
+            computed.push(col_f("orbital_phase", b(&|d| d.orbital_phase)));
+        }
         computed.push(col_f("residual_s", residual.clone()));
         computed.push(Column::new("pulse_number".into(), pulse));
         computed.push(Column::new("clock_extrapolated".into(), clock_x));
@@ -373,6 +545,7 @@ impl Pulsar {
             site_names,
             site_idx,
             rejected_sites: (0..results.len()).filter(|i| !ok[*i]).map(|i| site(i).to_string()).collect(),
+            orbital_phase: good.iter().filter_map(|g| g.binary.map(|b| b.orbital_phase)).collect(),
             bat_mjd,
             residual_s: residual,
             sigma_s,
@@ -420,7 +593,8 @@ impl PulsarInput<'_> {
 /// of data).
 fn finite(r: ArrivalResult) -> Result<ArrivalResult, Reject> {
     let values = [r.clock_s, r.einstein_s, r.roemer_s, r.parallax_s, r.shapiro_s, r.dispersion_s, r.residual_s];
-    if values.iter().chain(&r.shapiro_body_s).all(|v| v.is_finite()) {
+    let binary = r.binary.map(|b| [b.roemer_s, b.einstein_s, b.shapiro_s, b.aberration_s, b.total_s, b.orbital_phase]).unwrap_or_default();
+    if values.iter().chain(&r.shapiro_body_s).chain(&binary).all(|v| v.is_finite()) {
         Ok(r)
     } else {
         Err(Reject::new(RejectCode::NotFinite, format!("non-finite result: residual {:?} s, delays {values:?} s (check the model parameters)", r.residual_s)))
@@ -451,6 +625,8 @@ struct BatchFrames {
     site_idx: Vec<u32>,
     rejected_sites: Vec<String>,
     bat_mjd: Vec<f64>,
+    /// Orbital phase of each accepted row (empty without a binary).
+    orbital_phase: Vec<f64>,
     residual_s: Vec<f64>,
     sigma_s: Vec<f64>,
     eop_predicted: usize,
@@ -492,7 +668,11 @@ impl Kind for Pulsar {
     fn output_columns(&self) -> Vec<String> {
         let mut c: Vec<String> = ["tdb_mjd_day", "tdb_mjd_frac", "bat_mjd_day", "bat_mjd_frac", "clock_s", "einstein_s", "roemer_s", "parallax_s", "shapiro_s"].map(String::from).into();
         c.extend(self.ctx.shapiro.iter().map(|b| format!("shapiro_{}_s", b.name)));
-        c.extend(["dispersion_s", "residual_s", "pulse_number", "clock_extrapolated", "eop_predicted"].map(String::from));
+        c.push("dispersion_s".into());
+        if self.ctx.binary.is_some() {
+            c.extend(BINARY_COLUMNS.map(String::from));
+        }
+        c.extend(["residual_s", "pulse_number", "clock_extrapolated", "eop_predicted"].map(String::from));
         c
     }
 
@@ -574,9 +754,33 @@ impl Kind for Pulsar {
             s.subtract_mean_from = subtract.then_some("residual_s");
             s
         });
+        let orbit_set = self.ctx.binary.is_some().then(|| (f.orbital_phase.clone(), f.residual_s.clone(), f.sigma_s.clone()));
         set.extend_indexed(&f.site_names, &f.site_idx, f.bat_mjd, f.residual_s, f.sigma_s);
         for site in &f.rejected_sites {
             set.reject(site);
+        }
+        // Residuals against orbital phase: a plot of their own, not a
+        // second summary (same rows, same mean removed).
+        if let Some((phase, residual, sigma)) = orbit_set {
+            let orbit = tally.set("orbit", || {
+                let mut s = ResidualSet::new(
+                    "orbit",
+                    "residuals against orbital phase",
+                    "site",
+                    "s",
+                    Unit { name: "ns", per_natural: 1e9 },
+                    PlotSpec {
+                        name: "residuals_orbit".into(),
+                        title: "pulsar timing residuals against orbital phase".into(),
+                        x_label: "orbital phase (mean anomaly / 2π)".into(),
+                        unit: Unit { name: "µs", per_natural: 1e6 },
+                    },
+                );
+                s.subtract_mean_from = subtract.then_some("residual_s");
+                s.summarised = false;
+                s
+            });
+            orbit.extend_indexed(&f.site_names, &f.site_idx, phase, residual, sigma);
         }
         Ok(Processed { output: f.out, rejects: f.rejects, tally })
     }

@@ -48,6 +48,9 @@ pub struct ResidualSet {
     /// Output column from which the set's weighted mean is removed after the
     /// partition is complete (a pipeline option), if any.
     pub subtract_mean_from: Option<&'static str>,
+    /// False for a set that only makes a plot (the same rows as another
+    /// set, against another abscissa): no summary lines, no provenance.
+    pub summarised: bool,
     names: Vec<String>,
     group: Vec<u32>,
     /// Plot abscissa of each accepted row (MJD).
@@ -68,6 +71,7 @@ impl ResidualSet {
             unit,
             plot,
             subtract_mean_from: None,
+            summarised: true,
             names: Vec::new(),
             group: Vec::new(),
             x_mjd: Vec::new(),
@@ -238,7 +242,10 @@ impl Tally {
                 for r in s.residual.iter_mut() {
                     *r -= offset;
                 }
-                out.push((col, offset));
+                // Sets over the same rows share one column (and offset).
+                if !out.iter().any(|(c, _)| *c == col) {
+                    out.push((col, offset));
+                }
             }
         }
         out
@@ -271,7 +278,7 @@ pub fn summarise(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provena
         *summary.rejects_by_reason.entry(c.as_str().to_string()).or_default() += n;
     }
     tally.sets.sort_by(|a, b| a.key.cmp(&b.key));
-    for s in &tally.sets {
+    for s in tally.sets.iter().filter(|s| s.summarised) {
         let st = residual_summary(&s.residual, &s.sigma, false);
         let u = s.unit;
         let removed = s.subtract_mean_from.and_then(|c| offsets.iter().find(|o| o.0 == c)).map(|o| o.1);

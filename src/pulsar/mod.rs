@@ -14,6 +14,7 @@ use std::collections::HashMap;
 
 use nalgebra::Vector3;
 
+use crate::delays::binary::{BinaryDelays, BinaryError, BinaryOrbit};
 use crate::delays::{self, Source};
 use crate::earth::{EarthError, EarthModel, StationCatalog, StationError};
 use crate::ephemeris::{Ephemeris, EphemerisError, TdbSeconds};
@@ -50,6 +51,8 @@ pub enum ArrivalError {
     PlanEpoch(f64),
     #[error("no convergence to 1 ps near MJD {mjd} at {site}")]
     NoConvergence { site: String, mjd: f64 },
+    #[error("binary orbit: {0}")]
+    Binary(#[from] BinaryError),
 }
 
 impl Coded for ArrivalError {
@@ -62,7 +65,8 @@ impl Coded for ArrivalError {
             ArrivalError::NoClockChain(_) | ArrivalError::Clock(_) => RejectCode::ClockUnavailable,
             ArrivalError::Earth(_) | ArrivalError::Ephemeris(_) => RejectCode::GeometryUnavailable,
             ArrivalError::NonFiniteDelay(_) => RejectCode::NotFinite,
-            ArrivalError::NoConvergence { .. } => RejectCode::NotConverged,
+            ArrivalError::NoConvergence { .. } | ArrivalError::Binary(BinaryError::NotConverged(_)) => RejectCode::NotConverged,
+            ArrivalError::Binary(BinaryError::Unphysical { .. }) => RejectCode::ModelNotApplicable,
         }
     }
 }
@@ -133,6 +137,16 @@ pub struct PulsarContext {
     pub dm_pc_cm3: f64,
     pub shapiro: Vec<ShapiroBody>,
     pub ppn_gamma: f64,
+    /// The binary orbit, if the pulsar has a companion.
+    pub binary: Option<Binary>,
+}
+
+/// A binary orbit and its reference epoch (T₀, or T_asc for the
+/// near-circular model), TDB.
+#[derive(Clone, Debug)]
+pub struct Binary {
+    pub orbit: BinaryOrbit,
+    pub epoch: Epoch,
 }
 
 /// One arrival time to process.
@@ -160,6 +174,8 @@ pub struct ArrivalResult {
     pub shapiro_body_s: [f64; MAX_SHAPIRO_BODIES],
     pub dispersion_s: f64,
     pub eop_predicted: bool,
+    /// The binary delays (emission time T = BAT − binary total), if any.
+    pub binary: Option<BinaryDelays>,
     pub pulse_number: i64,
     /// Before any weighted-mean removal.
     pub residual_s: f64,
@@ -238,7 +254,17 @@ impl PulsarContext {
         let dispersion_s = delays::dispersion_s(self.dm_pc_cm3, f_bary);
         let total = roemer_s + parallax_s - shapiro_s - dispersion_s;
         let bat = st.tdb.plus_fs(seconds_to_fs(total).ok_or(ArrivalError::NonFiniteDelay(total))?)?;
-        let (pulse_number, frac) = self.spin.phase(&bat);
+        // In a binary: the pulse left the pulsar at its proper time T, with
+        // BAT = T + binary_s(T); the spin phase is the pulsar's at T.
+        let (emission, binary) = match &self.binary {
+            Some(b) => {
+                let bat_dt_s = ratio_to_f64(bat.label_fs() - b.epoch.label_fs(), FS_PER_S);
+                let (_, d) = b.orbit.emission(bat_dt_s)?;
+                (bat.plus_fs(-seconds_to_fs(d.total_s).ok_or(ArrivalError::NonFiniteDelay(d.total_s))?)?, Some(d))
+            }
+            None => (bat, None),
+        };
+        let (pulse_number, frac) = self.spin.phase(&emission);
         Ok(ArrivalResult {
             tdb: st.tdb,
             bat,
@@ -251,6 +277,7 @@ impl PulsarContext {
             shapiro_body_s,
             dispersion_s,
             eop_predicted: st.eop.predicted,
+            binary,
             pulse_number,
             residual_s: frac / self.spin.frequency_hz,
         })
