@@ -115,6 +115,9 @@ pub struct RunArgs {
     /// Do not write residual plots.
     #[arg(long)]
     pub no_plots: bool,
+    /// Plot formats, comma separated: png (default), svg.
+    #[arg(long, value_delimiter = ',', default_value = "png")]
+    pub plots: Vec<String>,
     /// Exit with code 3 when more than this fraction of the rows is rejected
     /// (0 … 1; the run still writes everything).
     #[arg(long, default_value_t = lapse::commands::run::DEFAULT_MAX_REJECTED_FRACTION)]
@@ -206,10 +209,11 @@ pub fn run_options(args: &RunArgs, quiet: bool) -> Result<(lapse::pipeline::RunO
         }
         rayon::ThreadPoolBuilder::new().num_threads(n).build_global().context("cannot start the worker threads")?;
     }
+    let plots: Vec<lapse::plots::PlotFormat> = if args.no_plots { Vec::new() } else { args.plots.iter().map(|f| f.parse()).collect::<Result<_, _>>()? };
     let counter = Arc::new(AtomicUsize::new(0));
     let phase = Arc::new(std::sync::atomic::AtomicU8::new(0));
     let exec = lapse::parallel::Exec { chunk_rows: args.chunk_rows, progress: Some(counter.clone()) };
-    let opts = lapse::pipeline::RunOptions { input: args.input.clone(), output: args.output.clone(), exec, plots: !args.no_plots, force: args.force, phase: Some(phase.clone()) };
+    let opts = lapse::pipeline::RunOptions { input: args.input.clone(), output: args.output.clone(), exec, plots, force: args.force, phase: Some(phase.clone()) };
     let progress = (!quiet).then(|| lapse::commands::progress::Progress::start(lapse::pipeline::input_rows(&args.pipeline, args.input.as_deref()).unwrap_or(0), counter, phase));
     Ok((opts, progress))
 }

@@ -251,7 +251,7 @@ fn killed_run_resumes_to_the_same_outputs() {
 fn plots_are_written_and_are_real_images() {
     let d = tmpdir("plots");
     let out = d.join("demo.parquet");
-    let o = lapse(&["run", "--max-rejected-fraction", "1", root().join("pipelines/tracking_demo.toml").to_str().unwrap(), "--output", out.to_str().unwrap()]);
+    let o = lapse(&["run", "--max-rejected-fraction", "1", root().join("pipelines/tracking_demo.toml").to_str().unwrap(), "--output", out.to_str().unwrap(), "--plots", "png,svg"]);
     assert_eq!(o.status.code(), Some(0));
     for kind in ["doppler_2way", "doppler_3way", "light_time_2way"] {
         for suffix in ["", "_normalised"] {

@@ -50,7 +50,6 @@ struct ClocksCfg {
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct SourceCfg {
-    #[allow(dead_code)]
     name: Option<String>,
     ra_deg: f64,
     dec_deg: f64,
@@ -278,6 +277,8 @@ pub struct Pulsar {
     /// Input files: role, path, coverage text (for provenance).
     pub inputs: Vec<(String, PathBuf, String)>,
     pub constants: Constants,
+    /// The source's name and the pipeline's, for plot titles.
+    pub label: String,
 }
 
 impl Pulsar {
@@ -382,7 +383,14 @@ impl Pulsar {
         };
         let ctx =
             PulsarContext { ephemeris, earth, stations, clocks, input_is_site_clock, allow_clock_extrapolation: cfg.clocks.allow_extrapolation, source, spin, dm_pc_cm3, shapiro, ppn_gamma, binary };
-        Ok(Pulsar { ctx, paths: IoPaths::resolve(file, &cfg.input.path, &cfg.output.path), subtract_weighted_mean: cfg.residuals.subtract_weighted_mean, inputs, constants })
+        Ok(Pulsar {
+            ctx,
+            paths: IoPaths::resolve(file, &cfg.input.path, &cfg.output.path),
+            label: format!("{} ({})", cfg.source.name.as_deref().unwrap_or("pulsar"), file.path.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default()),
+            subtract_weighted_mean: cfg.residuals.subtract_weighted_mean,
+            inputs,
+            constants,
+        })
     }
 
     /// Computes every row of a batch: results in input order (Err = reject reason).
@@ -545,6 +553,7 @@ impl Pulsar {
             site_names,
             site_idx,
             rejected_sites: (0..results.len()).filter(|i| !ok[*i]).map(|i| site(i).to_string()).collect(),
+            binary_range_s: good.iter().filter_map(|g| g.binary.map(|b| b.total_s)).fold(None, |acc: Option<(f64, f64)>, v| Some(acc.map_or((v, v), |(a, b)| (a.min(v), b.max(v))))),
             orbital_phase: good.iter().filter_map(|g| g.binary.map(|b| b.orbital_phase)).collect(),
             bat_mjd,
             residual_s: residual,
@@ -627,6 +636,8 @@ struct BatchFrames {
     bat_mjd: Vec<f64>,
     /// Orbital phase of each accepted row (empty without a binary).
     orbital_phase: Vec<f64>,
+    /// Least and greatest binary delay of the accepted rows, s.
+    binary_range_s: Option<(f64, f64)>,
     residual_s: Vec<f64>,
     sigma_s: Vec<f64>,
     eop_predicted: usize,
@@ -741,6 +752,9 @@ impl Kind for Pulsar {
         tally.cover_days("arrival", &input.day);
         tally.flag(f.eop_predicted, "rows used PREDICTED Earth-orientation values (column eop_predicted)");
         tally.flag(f.clock_extrapolated, "rows used EXTRAPOLATED clock corrections (column clock_extrapolated)");
+        if let Some((lo, hi)) = f.binary_range_s {
+            tally.range("binary delay binary_s over the accepted rows", "s", lo, hi);
+        }
         let subtract = self.subtract_weighted_mean;
         let set = tally.set("", || {
             let mut s = ResidualSet::new(
@@ -749,7 +763,12 @@ impl Kind for Pulsar {
                 "site",
                 "s",
                 Unit { name: "ns", per_natural: 1e9 },
-                PlotSpec { name: "residuals".into(), title: "pulsar timing residuals".into(), x_label: "barycentric arrival time (MJD, TDB)".into(), unit: Unit { name: "µs", per_natural: 1e6 } },
+                PlotSpec {
+                    name: "residuals".into(),
+                    title: format!("{} timing residuals", self.label),
+                    x_label: "barycentric arrival time (MJD, TDB)".into(),
+                    unit: Unit { name: "µs", per_natural: 1e6 },
+                },
             );
             s.subtract_mean_from = subtract.then_some("residual_s");
             s
@@ -771,7 +790,7 @@ impl Kind for Pulsar {
                     Unit { name: "ns", per_natural: 1e9 },
                     PlotSpec {
                         name: "residuals_orbit".into(),
-                        title: "pulsar timing residuals against orbital phase".into(),
+                        title: format!("{} timing residuals against orbital phase", self.label),
                         x_label: "orbital phase (mean anomaly / 2π)".into(),
                         unit: Unit { name: "µs", per_natural: 1e6 },
                     },

@@ -91,6 +91,8 @@ pub struct Tracking {
     pub paths: IoPaths,
     pub inputs: Vec<(String, PathBuf, String)>,
     pub constants: Constants,
+    /// The spacecraft and the pipeline, for plot titles.
+    pub label: String,
 }
 
 /// An epoch as (MJD day, fraction of the day).
@@ -170,7 +172,13 @@ impl Tracking {
             _ => None,
         };
         let ctx = TrackingContext { ephemeris, earth, stations, target, shapiro, ppn_gamma, transponder_delay_s: cfg.target.transponder_delay_s, turnaround, field, troposphere };
-        Ok(Tracking { ctx, paths: IoPaths::resolve(file, &cfg.input.path, &cfg.output.path), inputs, constants })
+        Ok(Tracking {
+            ctx,
+            paths: IoPaths::resolve(file, &cfg.input.path, &cfg.output.path),
+            label: format!("{} ({})", crate::ephemeris::body_name(target), file.path.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default()),
+            inputs,
+            constants,
+        })
     }
 
     /// Computes every row (Err = reject reason), in input order.
@@ -389,7 +397,7 @@ impl Kind for Tracking {
         for (i, r) in results.iter().enumerate() {
             let kind = input.kind[i].unwrap_or("(null)");
             let station = input.rx_station[i].unwrap_or("(null)");
-            let set = tally.set(kind, || residual_set(kind));
+            let set = tally.set(kind, || residual_set(kind, &self.label));
             if r.is_ok() {
                 let mjd = input.day[i].unwrap_or(0) as f64 + input.frac[i].unwrap_or(0.0);
                 set.push(station, mjd, residual[k], input.sigma[i].unwrap_or(1.0));
@@ -453,7 +461,7 @@ impl Kind for Tracking {
 
 /// The residual set of one observable: light time in s (shown in ns),
 /// Doppler in Hz (shown in mHz).
-fn residual_set(kind: &str) -> ResidualSet {
+fn residual_set(kind: &str, label: &str) -> ResidualSet {
     let (natural, unit) = if is_doppler(kind) { ("hz", Unit { name: "mHz", per_natural: 1e3 }) } else { ("s", Unit { name: "ns", per_natural: 1e9 }) };
     ResidualSet::new(
         kind,
@@ -461,6 +469,6 @@ fn residual_set(kind: &str) -> ResidualSet {
         "station",
         natural,
         unit,
-        PlotSpec { name: format!("residuals_{kind}"), title: format!("{kind} residuals"), x_label: "reception time (MJD, UTC)".into(), unit },
+        PlotSpec { name: format!("residuals_{kind}"), title: format!("{label}: {kind} residuals"), x_label: "reception time (MJD, UTC)".into(), unit },
     )
 }

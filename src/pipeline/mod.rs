@@ -54,8 +54,8 @@ pub struct RunOptions {
     pub output: Option<PathBuf>,
     /// Chunk size and progress counter of the computation.
     pub exec: crate::parallel::Exec,
-    /// Write residual plots beside the outputs.
-    pub plots: bool,
+    /// Residual plots beside the outputs, in these formats (none: no plots).
+    pub plots: Vec<crate::plots::PlotFormat>,
     /// Redo partitions whose outputs are up to date.
     pub force: bool,
     /// Where the current phase is published (progress displays).
@@ -64,7 +64,7 @@ pub struct RunOptions {
 
 impl Default for RunOptions {
     fn default() -> Self {
-        Self { input: None, output: None, exec: crate::parallel::Exec::default(), plots: true, force: false, phase: None }
+        Self { input: None, output: None, exec: crate::parallel::Exec::default(), plots: vec![crate::plots::PlotFormat::Png], force: false, phase: None }
     }
 }
 
@@ -79,6 +79,6 @@ pub fn run_kind(file: &PipelineFile, kind: &mut dyn Kind, opts: &RunOptions, on_
     kind.override_paths(opts.input.clone(), opts.output.clone());
     let base = kind.provenance(file)?;
     let (input, output): (PathBuf, PathBuf) = (kind.input_path().into(), kind.output_path().into());
-    let popts = stream::PartitionOptions { exec: opts.exec.clone(), plots: opts.plots, phase: opts.phase.clone() };
+    let popts = stream::PartitionOptions { exec: opts.exec.clone(), plots: opts.plots.clone(), phase: opts.phase.clone() };
     for_each_partition(&input, &output, &base, opts.force, |inp: &Path, out: &Path, prov| stream::run_partition(kind, inp, out, prov, &popts, on_report))
 }

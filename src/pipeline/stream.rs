@@ -57,8 +57,8 @@ impl Phase {
 #[derive(Clone, Debug)]
 pub struct PartitionOptions {
     pub exec: Exec,
-    /// Write residual plots beside the outputs.
-    pub plots: bool,
+    /// Residual plots beside the outputs, in these formats (none: no plots).
+    pub plots: Vec<crate::plots::PlotFormat>,
     /// Where the current [`Phase`] is published (for progress displays).
     pub phase: Option<std::sync::Arc<std::sync::atomic::AtomicU8>>,
 }
@@ -149,16 +149,16 @@ fn finish_partition(
     prov: &mut Provenance,
     offsets: &[(&'static str, f64)],
     output: &Path,
-    plots: bool,
+    plots: &[crate::plots::PlotFormat],
     phase: Option<&std::sync::Arc<std::sync::atomic::AtomicU8>>,
     commit: &mut Commit,
 ) -> Result<(), PipelineError> {
     finish(tally, summary, prov, offsets);
-    if plots {
+    if !plots.is_empty() {
         if let Some(a) = &phase {
             a.store(Phase::Plotting as u8, std::sync::atomic::Ordering::Relaxed);
         }
-        for (staged, fin) in plot(tally, output, commit)? {
+        for (staged, fin) in plot(tally, output, plots, commit)? {
             let bytes = std::fs::read(&staged).map_err(|e| IoError::Write { path: staged.clone(), message: e.to_string() })?;
             // Keyed by the name after the output's stem (`residuals.png`),
             // so the metadata does not depend on the output's name.
@@ -190,7 +190,7 @@ fn in_memory(
         subtract(&mut out, col, *offset, input)?;
     }
     (summary.rows_in, summary.rows_out, summary.rows_rejected) = (df.height(), out.height(), rej.height());
-    finish_partition(&mut tally, summary, &mut prov, &offsets, output, opts.plots, opts.phase.as_ref(), commit)?;
+    finish_partition(&mut tally, summary, &mut prov, &offsets, output, &opts.plots, opts.phase.as_ref(), commit)?;
     opts.enter(Phase::Writing);
     let metadata = prov.finish();
     write_parquet_file(&mut rej, &commit.stage(&rejects_path(output)), &metadata)?;
@@ -262,7 +262,7 @@ fn in_slices(
         close(wr, &tmp_rej)?;
     }
     let offsets = tally.remove_means();
-    finish_partition(&mut tally, summary, &mut prov, &offsets, output, opts.plots, opts.phase.as_ref(), commit)?;
+    finish_partition(&mut tally, summary, &mut prov, &offsets, output, &opts.plots, opts.phase.as_ref(), commit)?;
     opts.enter(Phase::Writing);
     let metadata = prov.finish();
     // Pass 2: final files, offsets removed, full metadata.

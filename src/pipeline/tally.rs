@@ -334,7 +334,7 @@ pub const PLOT_MAX_POINTS: usize = 50_000;
 
 /// Residual plots of every set with accepted rows, beside `output`, staged
 /// in `commit`: (staged, final) path pairs.
-pub fn plot(tally: &Tally, output: &Path, commit: &mut super::commit::Commit) -> Result<Vec<(PathBuf, PathBuf)>, PipelineError> {
+pub fn plot(tally: &Tally, output: &Path, formats: &[crate::plots::PlotFormat], commit: &mut super::commit::Commit) -> Result<Vec<(PathBuf, PathBuf)>, PipelineError> {
     let mut written = Vec::new();
     for s in tally.sets.iter().filter(|s| !s.is_empty()) {
         let step = s.len().div_ceil(PLOT_MAX_POINTS).max(1);
@@ -344,8 +344,10 @@ pub fn plot(tally: &Tally, output: &Path, commit: &mut super::commit::Commit) ->
         let pick = |v: &[f64], scale: f64| idx.iter().map(|i| v[*i] * scale).collect::<Vec<f64>>();
         let groups = crate::plots::group(&labels, &pick(&s.x_mjd, 1.0), &pick(&s.residual, k), &pick(&s.sigma, k));
         let y_label = format!("residual ({})", s.plot.unit.name);
+        // A thinned plot says so: its legend counts the rows shown.
+        let title = if step > 1 { format!("{} — every {step}th row shown ({} of {})", s.plot.title, idx.len(), s.len()) } else { s.plot.title.clone() };
         written.extend(
-            crate::plots::residual_plots(output, &s.plot.name, &s.plot.title, &s.plot.x_label, &y_label, &groups, &mut |p| commit.stage(p))
+            crate::plots::residual_plots(output, &s.plot.name, &title, &s.plot.x_label, &y_label, &groups, formats, &mut |p| commit.stage(p))
                 .map_err(|source| PipelineError::Plot { path: output.into(), source })?,
         );
     }

@@ -20,6 +20,24 @@ fn register_font() {
     });
 }
 
+/// An image format of the plots.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum PlotFormat {
+    Png,
+    Svg,
+}
+
+impl std::str::FromStr for PlotFormat {
+    type Err = PlotError;
+    fn from_str(s: &str) -> Result<Self, PlotError> {
+        match s.trim().to_ascii_lowercase().as_str() {
+            "png" => Ok(PlotFormat::Png),
+            "svg" => Ok(PlotFormat::Svg),
+            other => Err(PlotError::Draw(format!("unknown plot format '{other}' (png, svg)"))),
+        }
+    }
+}
+
 /// Errors of drawing or writing a plot.
 #[derive(Debug, thiserror::Error)]
 pub enum PlotError {
@@ -146,7 +164,16 @@ where
 /// each written where `stage` says for its final path (a temporary name
 /// with the same extension, renamed by the caller). Returns (written,
 /// final) path pairs.
-pub fn residual_plots(output: &Path, name: &str, title: &str, x_label: &str, y_label: &str, groups: &[Group], stage: &mut dyn FnMut(&Path) -> PathBuf) -> Result<Vec<(PathBuf, PathBuf)>, PlotError> {
+pub fn residual_plots(
+    output: &Path,
+    name: &str,
+    title: &str,
+    x_label: &str,
+    y_label: &str,
+    groups: &[Group],
+    formats: &[PlotFormat],
+    stage: &mut dyn FnMut(&Path) -> PathBuf,
+) -> Result<Vec<(PathBuf, PathBuf)>, PlotError> {
     register_font();
     let stem = output.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "output".into());
     let dir = output.parent().unwrap_or(Path::new("."));
@@ -155,12 +182,25 @@ pub fn residual_plots(output: &Path, name: &str, title: &str, x_label: &str, y_l
     let (res_png, res_svg) = (p(name, "png"), p(name, "svg"));
     let hist = format!("{name}_normalised");
     let (hist_png, hist_svg) = (p(&hist, "png"), p(&hist, "svg"));
-    let staged: Vec<PathBuf> = [&res_png, &res_svg, &hist_png, &hist_svg].into_iter().map(|p| stage(p)).collect();
-    draw_residuals(&BitMapBackend::new(&staged[0], (1200, 700)).into_drawing_area(), title, x_label, y_label, groups)?;
-    draw_residuals(&SVGBackend::new(&staged[1], (1200, 700)).into_drawing_area(), title, x_label, y_label, groups)?;
     let htitle = format!("{title}: normalised residuals");
-    draw_histogram(&BitMapBackend::new(&staged[2], (900, 600)).into_drawing_area(), &htitle, groups)?;
-    draw_histogram(&SVGBackend::new(&staged[3], (900, 600)).into_drawing_area(), &htitle, groups)?;
-    written.extend(staged.into_iter().zip([res_png, res_svg, hist_png, hist_svg]));
+    for f in formats {
+        let (res, hist) = match f {
+            PlotFormat::Png => (&res_png, &hist_png),
+            PlotFormat::Svg => (&res_svg, &hist_svg),
+        };
+        let (rs, hs) = (stage(res), stage(hist));
+        match f {
+            PlotFormat::Png => {
+                draw_residuals(&BitMapBackend::new(&rs, (1200, 700)).into_drawing_area(), title, x_label, y_label, groups)?;
+                draw_histogram(&BitMapBackend::new(&hs, (900, 600)).into_drawing_area(), &htitle, groups)?;
+            }
+            PlotFormat::Svg => {
+                draw_residuals(&SVGBackend::new(&rs, (1200, 700)).into_drawing_area(), title, x_label, y_label, groups)?;
+                draw_histogram(&SVGBackend::new(&hs, (900, 600)).into_drawing_area(), &htitle, groups)?;
+            }
+        }
+        written.push((rs, res.clone()));
+        written.push((hs, hist.clone()));
+    }
     Ok(written)
 }
