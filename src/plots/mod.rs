@@ -164,6 +164,7 @@ where
 /// each written where `stage` says for its final path (a temporary name
 /// with the same extension, renamed by the caller). Returns (written,
 /// final) path pairs.
+#[allow(clippy::too_many_arguments)]
 pub fn residual_plots(
     output: &Path,
     name: &str,
