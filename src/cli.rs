@@ -125,6 +125,9 @@ pub struct RunArgs {
     /// Redo partitions whose outputs are up to date.
     #[arg(long)]
     pub force: bool,
+    /// Write the run's summary as JSON here ('-': stdout, instead of the text summary).
+    #[arg(long)]
+    pub summary_json: Option<PathBuf>,
 }
 
 /// Arguments of `lapse time`.

@@ -50,7 +50,13 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
                 p.finish();
             }
             let summary = result?;
-            if !quiet {
+            let json = lapse::pipeline::stream::summary_json(&summary, None);
+            match args.summary_json.as_deref() {
+                Some(p) if p == std::path::Path::new("-") => print(&json)?,
+                Some(p) => std::fs::write(p, &json).with_context(|| format!("cannot write {}", p.display()))?,
+                None => {}
+            }
+            if !quiet && args.summary_json.as_deref() != Some(std::path::Path::new("-")) {
                 print(&commands::run::render_summary(&args.pipeline, &summary))?;
             }
             match commands::run::rejected_beyond(&summary, args.max_rejected_fraction)? {

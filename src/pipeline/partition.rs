@@ -138,6 +138,8 @@ where
         total.notes.extend(s.notes);
         total.partitions_done += 1;
         total.plots.extend(s.plots);
+        total.sets.extend(s.sets);
+        total.flagged.extend(s.flagged);
         if !partitioned {
             total.output = s.output;
             total.rejects = s.rejects;

@@ -135,8 +135,33 @@ pub fn run_partition(kind: &mut dyn Kind, input: &Path, output: &Path, mut prov:
             in_slices(kind, input, output, prov, opts, &mut summary, n_rows, &mut commit)?
         }
     }
+    // `<stem>.summary.json`: the partition's summary for monitoring,
+    // committed with its tables.
+    let json = summary_json(&summary, Some(commit.run_id()));
+    let path = output.with_file_name(format!("{}.summary.json", output.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default()));
+    let staged = commit.stage(&path);
+    std::fs::write(&staged, json).map_err(|e| IoError::Write { path: staged.clone(), message: e.to_string() })?;
     commit.commit()?;
     Ok(summary)
+}
+
+/// A run's (or one partition's) summary as JSON: rows, rejects by code,
+/// residual statistics per set and group (natural units), flagged rows,
+/// files; `run_id` when it is one partition's.
+pub fn summary_json(s: &RunSummary, run_id: Option<&str>) -> String {
+    let v = serde_json::json!({
+        "lapse_version": crate::VERSION,
+        "run_id": run_id,
+        "rows": { "in": s.rows_in, "out": s.rows_out, "rejected": s.rows_rejected },
+        "rejects_by_code": s.rejects_by_reason,
+        "residuals": s.sets,
+        "flagged": s.flagged.iter().map(|(n, t)| serde_json::json!({ "rows": n, "what": t })).collect::<Vec<_>>(),
+        "partitions": { "processed": s.partitions_done, "up_to_date": s.partitions_skipped },
+        "output": s.output,
+        "rejects": s.rejects,
+        "plots": s.plots,
+    });
+    serde_json::to_string_pretty(&v).unwrap_or_default() + "\n"
 }
 
 /// The summary, provenance and plots of a complete partition: the plots are

@@ -252,8 +252,32 @@ impl Tally {
     }
 }
 
+/// Statistics of one group (site or station) of a residual set.
+#[derive(Clone, Debug, Default, PartialEq, serde::Serialize)]
+pub struct GroupStats {
+    pub name: String,
+    pub rows: usize,
+    pub rejected: usize,
+    /// In the set's natural unit (s or Hz).
+    pub weighted_rms: f64,
+    pub chi2: f64,
+}
+
+/// Statistics of one residual set (for machine-readable summaries).
+#[derive(Clone, Debug, Default, PartialEq, serde::Serialize)]
+pub struct SetStats {
+    pub key: String,
+    /// "s" or "hz".
+    pub unit: String,
+    pub rows: usize,
+    pub weighted_rms: f64,
+    pub chi2: f64,
+    pub weighted_mean_removed: Option<f64>,
+    pub groups: Vec<GroupStats>,
+}
+
 /// What a run did, for the summary on stdout and in the output metadata.
-#[derive(Clone, Debug, Default)]
+#[derive(Clone, Debug, Default, serde::Serialize)]
 pub struct RunSummary {
     pub rows_in: usize,
     pub rows_out: usize,
@@ -269,6 +293,10 @@ pub struct RunSummary {
     pub partitions_skipped: usize,
     /// Plot files written.
     pub plots: Vec<PathBuf>,
+    /// Residual statistics per set (and group).
+    pub sets: Vec<SetStats>,
+    /// Flagged-row counts: (rows, what).
+    pub flagged: Vec<(usize, String)>,
 }
 
 /// The summary lines and provenance entries of a complete partition;
@@ -306,10 +334,13 @@ pub fn summarise(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provena
             by_group.entry(g.as_str()).or_default().2 += n;
         }
         summary.notes.push(format!("  {:<14} {:>8} {:>9} {:>18} {:>12}", s.group_label, "rows", "rejected", format!("weighted RMS ({})", u.name), "χ²"));
+        let mut stats = SetStats { key: s.key.clone(), unit: s.natural_unit.into(), rows: st.count, weighted_rms: st.weighted_rms, chi2: st.chi2, weighted_mean_removed: removed, groups: Vec::new() };
         for (g, (r, sg, rej)) in &by_group {
-            let st = residual_summary(r, sg, false);
-            summary.notes.push(format!("  {g:<14} {:>8} {:>9} {:>18.3} {:>12.2}", st.count, rej, st.weighted_rms * u.per_natural, st.chi2));
+            let gs = residual_summary(r, sg, false);
+            summary.notes.push(format!("  {g:<14} {:>8} {:>9} {:>18.3} {:>12.2}", gs.count, rej, gs.weighted_rms * u.per_natural, gs.chi2));
+            stats.groups.push(GroupStats { name: g.to_string(), rows: gs.count, rejected: *rej, weighted_rms: gs.weighted_rms, chi2: gs.chi2 });
         }
+        summary.sets.push(stats);
         let key = if s.key.is_empty() { "residuals".to_string() } else { format!("residuals.{}", s.key) };
         prov.set(&format!("{key}.count"), &st.count.to_string());
         prov.set(&format!("{key}.weighted_rms_{}", s.natural_unit), &format!("{:e}", st.weighted_rms));
@@ -321,6 +352,7 @@ pub fn summarise(tally: &mut Tally, summary: &mut RunSummary, prov: &mut Provena
     for (n, text) in &tally.flagged {
         if *n > 0 {
             summary.notes.push(format!("{n} {text}"));
+            summary.flagged.push((*n, text.clone()));
         }
     }
     for (label, unit, lo, hi) in &tally.ranges {
