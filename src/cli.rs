@@ -79,6 +79,17 @@ pub enum Command {
         #[arg(long)]
         rows: Option<PathBuf>,
     },
+    /// Write a Parquet table (an output of lapse) as CSV text.
+    Export {
+        /// The Parquet file.
+        file: PathBuf,
+        /// Write CSV (the one text format; the flag is required to say so).
+        #[arg(long, required = true)]
+        csv: bool,
+        /// Write here instead of stdout.
+        #[arg(long)]
+        output: Option<PathBuf>,
+    },
     /// Print the provenance metadata of an output file.
     Provenance {
         /// A Parquet file written by lapse.
@@ -168,6 +179,9 @@ pub struct TimeArgs {
     /// IERS EOP file (finals2000A or C04); also enables UT1.
     #[arg(long)]
     pub eop: Option<PathBuf>,
+    /// Output format: text (default), csv, json.
+    #[arg(long, default_value = "text")]
+    pub format: String,
 }
 
 impl TimeArgs {

@@ -19,7 +19,7 @@ fn main() -> ExitCode {
     match dispatch(cli) {
         Ok(code) => code,
         // A closed stdout (`lapse time … | head`) is not an error.
-        Err(e) if e.downcast_ref::<std::io::Error>().is_some_and(|e| e.kind() == std::io::ErrorKind::BrokenPipe) => ExitCode::SUCCESS,
+        Err(e) if e.chain().any(|c| c.downcast_ref::<std::io::Error>().is_some_and(|e| e.kind() == std::io::ErrorKind::BrokenPipe)) => ExitCode::SUCCESS,
         Err(e) => {
             eprintln!("lapse: error: {}", cli::render_error(&e));
             ExitCode::from(2)
@@ -96,6 +96,10 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             }
             Ok(if r.within_tolerance() { ExitCode::SUCCESS } else { ExitCode::from(1) })
         }
+        Command::Export { file, csv: _, output } => {
+            commands::export::export_csv(&file, output.as_deref())?;
+            Ok(ExitCode::SUCCESS)
+        }
         Command::Provenance { file } => {
             print(&commands::provenance::render(&file)?)?;
             Ok(ExitCode::SUCCESS)
@@ -105,7 +109,8 @@ fn dispatch(cli: Cli) -> Result<ExitCode> {
             Ok(ExitCode::SUCCESS)
         }
         Command::Time(args) => {
-            print(&commands::time::convert(&args.into_request())?)?;
+            let format: commands::time::TimeFormat = args.format.parse()?;
+            print(&commands::time::convert_as(&args.into_request(), format)?)?;
             Ok(ExitCode::SUCCESS)
         }
     }

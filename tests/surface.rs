@@ -40,3 +40,61 @@ fn summaries_are_machine_readable() {
     assert_eq!(file["rows"]["out"], 518);
     assert!(file["run_id"].as_str().is_some());
 }
+
+/// `lapse time` reads day-of-year dates and prints CSV or JSON for scripts.
+#[test]
+fn time_takes_day_of_year_and_prints_csv_or_json() {
+    let o = lapse(&["time", "2024-080T12:00:00", "--to", "utc,tdb", "--format", "csv"]);
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    let csv = String::from_utf8_lossy(&o.stdout);
+    let lines: Vec<&str> = csv.lines().collect();
+    assert_eq!(lines[0], "input,from,scale,iso,mjd");
+    assert!(lines[1].starts_with("2024-080T12:00:00,UTC,utc,2024-03-20T12:00:00.000000000000000,60389.5"), "{csv}");
+    let o = lapse(&["time", "mjd:60389.5", "--to", "tt", "--format", "json"]);
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!(v[0]["scale"], "tt");
+    assert!(v[0]["iso"].as_str().unwrap().starts_with("2024-03-20T12:01:09.184"));
+    assert_eq!(lapse(&["time", "mjd:60389.5", "--format", "xml"]).status.code(), Some(2));
+}
+
+/// `lapse export --csv` writes a residual table as text, every digit kept.
+#[test]
+fn export_writes_csv() {
+    let d = tmpdir("surface-export");
+    let out = d.join("demo.parquet");
+    assert_eq!(lapse(&["run", root().join("pipelines/pulsar_demo.toml").to_str().unwrap(), "--output", out.to_str().unwrap(), "-q", "--no-plots"]).status.code(), Some(0));
+    let csv_path = d.join("demo.csv");
+    let o = lapse(&["export", out.to_str().unwrap(), "--csv", "--output", csv_path.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = std::fs::read_to_string(&csv_path).unwrap();
+    let lines: Vec<&str> = text.lines().collect();
+    assert_eq!(lines.len(), 1341);
+    let header: Vec<&str> = lines[0].split(',').collect();
+    let k = header.iter().position(|h| *h == "residual_s").unwrap();
+    let df = read(&out);
+    let r0 = df.column("residual_s").unwrap().f64().unwrap().get(0).unwrap();
+    assert_eq!(lines[1].split(',').nth(k).unwrap().parse::<f64>().unwrap(), r0, "the same f64");
+}
+
+/// One vocabulary: `[time] leap_seconds` and `[input] time_scale` in every
+/// kind; the old spellings work with a deprecation warning.
+#[test]
+fn old_key_spellings_warn_but_work() {
+    let d = tmpdir("surface-keys");
+    let text = std::fs::read_to_string(root().join("pipelines/timescales_demo.toml")).unwrap().replace("../", &format!("{}/", root().display())).replace("time_scale = \"utc\"", "scale = \"utc\"");
+    let text = text.replace(&format!("{}/out/timescales_demo.parquet", root().display()), &d.join("ts.parquet").display().to_string());
+    std::fs::write(d.join("ts.toml"), text).unwrap();
+    let o = lapse(&["run", d.join("ts.toml").to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("[input] scale is deprecated"));
+    let text = std::fs::read_to_string(root().join("pipelines/pulsar_demo.toml")).unwrap().replace("../", &format!("{}/", root().display()));
+    let old = text
+        .replace(&format!("[time]\nleap_seconds = \"{}/data/Leap_Second.dat\"\n", root().display()), "")
+        .replace(&format!("eop = \"{}/data/finals2000A.all\"", root().display()), &format!("eop = \"{0}/data/finals2000A.all\"\nleap_seconds = \"{0}/data/Leap_Second.dat\"", root().display()));
+    assert_ne!(old, text);
+    std::fs::write(d.join("p.toml"), old.replace(&format!("{}/out/pulsar_demo.parquet", root().display()), &d.join("p.parquet").display().to_string())).unwrap();
+    let o = lapse(&["run", d.join("p.toml").to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("[earth] leap_seconds is deprecated"));
+    assert_eq!(read(&d.join("p.parquet")).column("residual_s").unwrap(), read(&root().join("tests/golden/pulsar_demo.parquet")).column("residual_s").unwrap());
+}

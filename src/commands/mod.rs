@@ -6,6 +6,7 @@
 
 pub mod check;
 pub mod engine;
+pub mod export;
 pub mod progress;
 pub mod provenance;
 pub mod run;

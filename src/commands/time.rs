@@ -52,12 +52,76 @@ pub enum TimeCommandError {
     Ut1NeedsEop,
     #[error("no epochs given (arguments or --file)")]
     NoEpochs,
+    #[error("--format {0}: use text, csv or json")]
+    UnknownFormat(String),
     #[error("{at}: {error}")]
     At { at: String, error: Box<TimeCommandError> },
 }
 
 fn at(where_: &str) -> impl Fn(TimeCommandError) -> TimeCommandError + '_ {
     move |e| TimeCommandError::At { at: where_.to_string(), error: Box::new(e) }
+}
+
+/// How `lapse time` prints.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum TimeFormat {
+    /// One block per epoch, aligned, with `#` comment lines.
+    #[default]
+    Text,
+    /// One row per epoch and scale: `input,scale,iso,mjd` (header first).
+    Csv,
+    /// A JSON array of `{input, from, scale, iso, mjd}` objects.
+    Json,
+}
+
+impl std::str::FromStr for TimeFormat {
+    type Err = TimeCommandError;
+    fn from_str(s: &str) -> Result<Self, TimeCommandError> {
+        match s {
+            "text" => Ok(TimeFormat::Text),
+            "csv" => Ok(TimeFormat::Csv),
+            "json" => Ok(TimeFormat::Json),
+            other => Err(TimeCommandError::UnknownFormat(other.to_string())),
+        }
+    }
+}
+
+/// The conversion table of every requested epoch, in `format`.
+pub fn convert_as(req: &TimeRequest, format: TimeFormat) -> Result<String, TimeCommandError> {
+    let text = convert(req)?;
+    if format == TimeFormat::Text {
+        return Ok(text);
+    }
+    // The text form's data lines are `<scale> <iso>  MJD <mjd>` under a
+    // `# <input> (<from>)` line: the other forms are made from them.
+    let mut rows: Vec<(String, String, String, String, String)> = Vec::new();
+    let (mut input, mut from) = (String::new(), String::new());
+    for line in text.lines() {
+        if let Some(head) = line.strip_prefix("# ") {
+            if let Some((i, f)) = head.rsplit_once(" (").filter(|_| !head.starts_with("site ") && !head.starts_with("UT1 ")) {
+                (input, from) = (i.to_string(), f.trim_end_matches(')').to_string());
+            }
+            continue;
+        }
+        let mut f = line.split_whitespace();
+        if let (Some(scale), Some(iso), Some("MJD"), Some(mjd)) = (f.next(), f.next(), f.next(), f.next()) {
+            rows.push((input.clone(), from.clone(), scale.to_string(), iso.to_string(), mjd.to_string()));
+        }
+    }
+    Ok(match format {
+        TimeFormat::Csv => {
+            let q = |s: &str| if s.contains([',', '"']) { format!("\"{}\"", s.replace('"', "\"\"")) } else { s.to_string() };
+            let mut out = String::from("input,from,scale,iso,mjd\n");
+            for (i, f, s, iso, m) in &rows {
+                out.push_str(&format!("{},{f},{s},{iso},{m}\n", q(i)));
+            }
+            out
+        }
+        _ => {
+            let v: Vec<serde_json::Value> = rows.iter().map(|(i, f, s, iso, m)| serde_json::json!({ "input": i, "from": f, "scale": s, "iso": iso, "mjd": m })).collect();
+            serde_json::to_string_pretty(&v).unwrap_or_default() + "\n"
+        }
+    })
 }
 
 /// The conversion table of every requested epoch, as printed.

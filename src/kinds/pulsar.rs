@@ -14,7 +14,7 @@ use crate::delays::{DISPERSION_K_S_MHZ2_CM3_PC, MAS_TO_RAD, Source};
 use crate::io::Columns;
 use crate::parallel::Exec;
 use crate::pipeline::preflight::{Facts, Level, Preflight, check_coverage, check_earth, unknown_codes};
-use crate::pipeline::shared::{EarthCfg, EphemerisCfg, OutputCfg, SharedInputs, StationsCfg, load_shared, shared_provenance};
+use crate::pipeline::shared::{EarthCfg, EphemerisCfg, OutputCfg, SharedInputs, StationsCfg, TimeCfg, load_shared, shared_provenance};
 use crate::pipeline::table::assemble;
 use crate::pipeline::tally::{PlotSpec, ResidualSet, Tally, Unit};
 use crate::pipeline::{IoPaths, Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
@@ -243,6 +243,7 @@ pub struct PulsarPipeline {
     input: InputCfg,
     ephemeris: EphemerisCfg,
     earth: EarthCfg,
+    time: Option<TimeCfg>,
     stations: StationsCfg,
     #[serde(default)]
     clocks: ClocksCfg,
@@ -292,7 +293,7 @@ impl Pulsar {
             "site" => true,
             other => return Err(invalid(format!("[input] time_scale = '{other}': use \"utc\" or \"site\""))),
         };
-        let SharedInputs { ephemeris, constants, earth, stations, mut inputs } = load_shared(file, &cfg.ephemeris, &cfg.earth, &cfg.stations)?;
+        let SharedInputs { ephemeris, constants, earth, stations, mut inputs } = load_shared(file, &cfg.ephemeris, &cfg.earth, cfg.time.as_ref(), &cfg.stations)?;
         let mut clocks = HashMap::new();
         for (site, chain) in &cfg.clocks.sites {
             stations.get(site).map_err(|e| invalid(format!("[clocks] sites: {e}")))?;

@@ -17,6 +17,7 @@ use crate::io::Columns;
 use crate::parallel::Exec;
 use crate::pipeline::preflight::{Facts, Preflight, check_leap_seconds};
 use crate::pipeline::provenance::leap_coverage;
+use crate::pipeline::shared::TimeCfg;
 use crate::pipeline::table::assemble;
 use crate::pipeline::tally::Tally;
 use crate::pipeline::{IoPaths, Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
@@ -28,20 +29,11 @@ use crate::time::{ExpiryPolicy, LeapSecondTable, TimeError, TimeScale, TimeScale
 #[serde(deny_unknown_fields)]
 struct InputCfg {
     path: PathBuf,
-    #[serde(default = "default_scale")]
-    scale: String,
-}
-
-fn default_scale() -> String {
-    "utc".into()
-}
-
-#[derive(Debug, Default, Deserialize)]
-#[serde(deny_unknown_fields)]
-struct TimeCfg {
-    leap_seconds: Option<PathBuf>,
-    #[serde(default)]
-    extend_leap_table: bool,
+    /// The input's time scale (default "utc"); the same key as in pulsar
+    /// pipelines.
+    time_scale: Option<String>,
+    /// Deprecated spelling of `time_scale` (accepted for one release, with a warning).
+    scale: Option<String>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -91,7 +83,15 @@ impl Timescales {
     /// Reads a `timescales` pipeline and loads its leap-second table once.
     pub fn load(file: &PipelineFile) -> Result<Self, PipelineError> {
         let cfg: TimescalesPipeline = file.parse()?;
-        let in_scale: TimeScale = cfg.input.scale.parse().map_err(|e: TimeError| file.invalid(format!("[input] scale: {e}")))?;
+        let scale_text = match (&cfg.input.time_scale, &cfg.input.scale) {
+            (Some(_), Some(_)) => return Err(file.invalid("[input] time_scale and scale both given: keep time_scale")),
+            (None, Some(s)) => {
+                tracing::warn!("{}: [input] scale is deprecated: write it as [input] time_scale", file.path.display());
+                s.clone()
+            }
+            (t, None) => t.clone().unwrap_or_else(|| "utc".into()),
+        };
+        let in_scale: TimeScale = scale_text.parse().map_err(|e: TimeError| file.invalid(format!("[input] time_scale: {e}")))?;
         let out_scales: Vec<TimeScale> = match &cfg.output.scales {
             Some(list) => list.iter().map(|s| s.parse().map_err(|e: TimeError| file.invalid(format!("[output] scales: {e}")))).collect::<Result<_, _>>()?,
             None => vec![TimeScale::Utc, TimeScale::Tai, TimeScale::Tt, TimeScale::Tcg, TimeScale::Tdb, TimeScale::Tcb],

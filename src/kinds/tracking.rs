@@ -19,7 +19,7 @@ use crate::io::Columns;
 use crate::parallel::Exec;
 use crate::pipeline::preflight::{Facts, Level, Preflight, check_coverage, check_earth, unknown_codes};
 use crate::pipeline::provenance::kernel_coverage;
-use crate::pipeline::shared::{EarthCfg, EphemerisCfg, OutputCfg, SharedInputs, StationsCfg, load_shared, shared_provenance};
+use crate::pipeline::shared::{EarthCfg, EphemerisCfg, OutputCfg, SharedInputs, StationsCfg, TimeCfg, load_shared, shared_provenance};
 use crate::pipeline::table::assemble;
 use crate::pipeline::tally::{PlotSpec, ResidualSet, Tally, Unit};
 use crate::pipeline::{IoPaths, Kind, PipelineError, PipelineFile, Processed, Provenance, SynthOptions};
@@ -77,6 +77,7 @@ pub struct TrackingPipeline {
     input: InputCfg,
     ephemeris: EphemerisCfg,
     earth: EarthCfg,
+    time: Option<TimeCfg>,
     stations: StationsCfg,
     target: TargetCfg,
     #[serde(default)]
@@ -132,7 +133,7 @@ impl Tracking {
     pub fn load(file: &PipelineFile) -> Result<Self, PipelineError> {
         let cfg: TrackingPipeline = file.parse()?;
         let invalid = |message: String| file.invalid(message);
-        let SharedInputs { mut ephemeris, constants, earth, stations, mut inputs } = load_shared(file, &cfg.ephemeris, &cfg.earth, &cfg.stations)?;
+        let SharedInputs { mut ephemeris, constants, earth, stations, mut inputs } = load_shared(file, &cfg.ephemeris, &cfg.earth, cfg.time.as_ref(), &cfg.stations)?;
         let target = match &cfg.target.body {
             toml::Value::Integer(i) => i32::try_from(*i).map_err(|_| invalid(format!("[target] body {i} is not a NAIF id")))?,
             toml::Value::String(s) => body_id(s, &[]).ok_or_else(|| invalid(format!("[target] body '{s}' is not a known name or NAIF id")))?,

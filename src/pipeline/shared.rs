@@ -41,6 +41,30 @@ pub struct StationsCfg {
     pub catalog: PathBuf,
 }
 
+/// `[time]`: the leap-second file (the same key in every kind).
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TimeCfg {
+    pub leap_seconds: Option<PathBuf>,
+    /// Accept UTC past the table's window (timescales only).
+    #[serde(default)]
+    pub extend_leap_table: bool,
+}
+
+/// The leap-second file of a pipeline: `[time] leap_seconds`, or the
+/// deprecated `[earth] leap_seconds` (accepted for one release, with a
+/// warning); both at once is an error.
+pub fn leap_seconds_key<'a>(file: &PipelineFile, time: Option<&'a Path>, earth: Option<&'a Path>) -> Result<Option<&'a Path>, PipelineError> {
+    match (time, earth) {
+        (Some(_), Some(_)) => Err(file.invalid("leap_seconds given in [time] and in [earth]: keep [time] leap_seconds")),
+        (None, Some(p)) => {
+            tracing::warn!("{}: [earth] leap_seconds is deprecated: write it as [time] leap_seconds", file.path.display());
+            Ok(Some(p))
+        }
+        (t, None) => Ok(t),
+    }
+}
+
 /// `[output]`: where the results table goes (rejects beside it).
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -59,10 +83,11 @@ pub struct SharedInputs {
 }
 
 /// Loads `[ephemeris]`, `[earth]` and `[stations]` of a pipeline.
-pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg, st: &StationsCfg) -> Result<SharedInputs, PipelineError> {
+pub fn load_shared(file: &PipelineFile, eph: &EphemerisCfg, earth_cfg: &EarthCfg, time_cfg: Option<&TimeCfg>, st: &StationsCfg) -> Result<SharedInputs, PipelineError> {
     let invalid = |message: String| file.invalid(message);
     let mut inputs: Vec<(String, PathBuf, String)> = Vec::new();
-    let (time, leap_path) = load_time(file, earth_cfg.leap_seconds.as_deref())?;
+    let leap = leap_seconds_key(file, time_cfg.and_then(|t| t.leap_seconds.as_deref()), earth_cfg.leap_seconds.as_deref())?;
+    let (time, leap_path) = load_time(file, leap)?;
     if let Some(p) = leap_path {
         inputs.push(("leap_seconds".into(), p, leap_coverage(time.leap_seconds())));
     }

@@ -54,7 +54,7 @@ pub fn parse_epoch(ts: &TimeScales, scale: TimeScale, input: &str) -> Result<Epo
     if let Some(rest) = lower.strip_prefix("jd:") {
         return parse_day_number(ts, scale, input, rest.trim(), 1);
     }
-    if s.len() >= 10 && s.as_bytes()[4] == b'-' {
+    if s.len() >= 8 && s.as_bytes()[4] == b'-' {
         return parse_calendar(ts, scale, input, s);
     }
     if s.bytes().next().is_some_and(|b| b.is_ascii_digit() || b == b'-' || b == b'+') {
@@ -104,22 +104,33 @@ fn parse_calendar(ts: &TimeScales, scale: TimeScale, input: &str, s: &str) -> Re
     };
     let time = time.trim_end_matches(['Z', 'z']);
     let parts: Vec<&str> = date.split('-').collect();
-    if parts.len() != 3 || parts[0].len() != 4 || parts[1].len() != 2 || parts[2].len() != 2 {
-        return Err(perr(input, format!("date '{date}' is not YYYY-MM-DD")));
-    }
     let num = |p: &str, what: &str| -> Result<i64, TimeError> {
         if !p.bytes().all(|b| b.is_ascii_digit()) {
             return Err(perr(input, format!("{what} '{p}' is not a number")));
         }
         p.parse::<i64>().map_err(|_| perr(input, format!("{what} '{p}' is not a number")))
     };
-    let year = num(parts[0], "year")?;
-    let month = num(parts[1], "month")? as u32;
-    let day = num(parts[2], "day")? as u32;
-    if !is_valid_date(year, month, day) {
-        return Err(perr(input, format!("{date} is not a calendar date")));
-    }
-    let mjd_day = mjd_from_ymd(year, month, day);
+    let mjd_day = if parts.len() == 2 && parts[0].len() == 4 && parts[1].len() == 3 {
+        // Day of year (ISO 8601 ordinal date): YYYY-DDD.
+        let year = num(parts[0], "year")?;
+        let doy = num(parts[1], "day of year")?;
+        let days_in_year = if is_valid_date(year, 2, 29) { 366 } else { 365 };
+        if !(1..=days_in_year).contains(&doy) {
+            return Err(perr(input, format!("day of year {doy} is not in 1 … {days_in_year}")));
+        }
+        mjd_from_ymd(year, 1, 1) + doy - 1
+    } else {
+        if parts.len() != 3 || parts[0].len() != 4 || parts[1].len() != 2 || parts[2].len() != 2 {
+            return Err(perr(input, format!("date '{date}' is not YYYY-MM-DD or YYYY-DDD")));
+        }
+        let year = num(parts[0], "year")?;
+        let month = num(parts[1], "month")? as u32;
+        let day = num(parts[2], "day")? as u32;
+        if !is_valid_date(year, month, day) {
+            return Err(perr(input, format!("{date} is not a calendar date")));
+        }
+        mjd_from_ymd(year, month, day)
+    };
     let (h, m, sec_int, sec_frac) = if time.is_empty() {
         (0, 0, 0, "")
     } else {
@@ -161,6 +172,17 @@ fn parse_calendar(ts: &TimeScales, scale: TimeScale, input: &str, s: &str) -> Re
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn day_of_year_dates() {
+        // ISO 8601 ordinal dates: 2024-080 is 2024-03-20 (2024 is a leap year).
+        let ts = TimeScales::builtin();
+        let a = parse_epoch(&ts, TimeScale::Utc, "2024-080T12:00:00").unwrap();
+        let b = parse_epoch(&ts, TimeScale::Utc, "2024-03-20T12:00:00").unwrap();
+        assert_eq!(a, b);
+        assert!(parse_epoch(&ts, TimeScale::Utc, "2023-366").is_err());
+        assert!(parse_epoch(&ts, TimeScale::Utc, "2024-366").is_ok());
+    }
 
     #[test]
     fn forms_agree() {
