@@ -98,3 +98,47 @@ fn old_key_spellings_warn_but_work() {
     assert!(String::from_utf8_lossy(&o.stderr).contains("[earth] leap_seconds is deprecated"));
     assert_eq!(read(&d.join("p.parquet")).column("residual_s").unwrap(), read(&root().join("tests/golden/pulsar_demo.parquet")).column("residual_s").unwrap());
 }
+
+/// Source positions in sexagesimal text or ecliptic coordinates give the
+/// same ICRS direction as the degrees they stand for; the ecliptic
+/// conversion matches pyerfa 2.0.1.5 `eceq06` at J2000.0
+/// (`tests/reference/ecliptic_sweep.py`, fixture `ecliptic_icrs.csv`) to
+/// 1e-12 deg.
+#[test]
+fn source_positions_in_sexagesimal_and_ecliptic_form() {
+    const ECLIPTIC_TOL_DEG: f64 = 1e-12;
+    let text = std::fs::read_to_string(root().join("tests/fixtures/ecliptic_icrs.csv")).unwrap();
+    let mut n = 0;
+    for line in text.lines().filter(|l| !l.starts_with('#') && !l.starts_with("lon")) {
+        let v: Vec<f64> = line.split(',').map(|x| x.parse().unwrap()).collect();
+        let (ra, dec) = lapse::delays::ecliptic_j2000_to_icrs_deg(v[0], v[1]);
+        let dra = ((ra - v[2] + 180.0).rem_euclid(360.0) - 180.0).abs();
+        assert!(dra * v[3].to_radians().cos() <= ECLIPTIC_TOL_DEG && (dec - v[3]).abs() <= ECLIPTIC_TOL_DEG, "{line}: {ra} {dec}");
+        n += 1;
+    }
+    assert_eq!(n, 42);
+    // Sexagesimal: 16:53:39.048 = 253.4127°, -31:17:04.56 = -31.2846°.
+    assert!((lapse::kinds::pulsar::sexagesimal("16:53:39.048").unwrap() * 15.0 - 253.4127).abs() < 1e-12);
+    assert!((lapse::kinds::pulsar::sexagesimal("-31:17:04.56").unwrap() + 31.2846).abs() < 1e-12);
+    assert!((lapse::kinds::pulsar::sexagesimal("-00:30:00").unwrap() + 0.5).abs() < 1e-15, "the sign of -00");
+    assert!(lapse::kinds::pulsar::sexagesimal("12:61:00").is_none());
+    // Through a run: the sexagesimal pipeline's residuals are the degree pipeline's.
+    let d = tmpdir("surface-source");
+    let text = std::fs::read_to_string(root().join("pipelines/pulsar_demo.toml")).unwrap().replace("../", &format!("{}/", root().display()));
+    let sexa = text.replace("ra_deg = 253.4127\ndec_deg = -31.2846", "ra_hms = \"16:53:39.048\"\ndec_dms = \"-31:17:04.56\"");
+    assert_ne!(sexa, text);
+    std::fs::write(d.join("s.toml"), sexa.replace(&format!("{}/out/pulsar_demo.parquet", root().display()), &d.join("s.parquet").display().to_string())).unwrap();
+    let o = lapse(&["run", d.join("s.toml").to_str().unwrap(), "--no-plots"]);
+    assert_eq!(o.status.code(), Some(0), "{}", String::from_utf8_lossy(&o.stderr));
+    let (a, b) = (read(&d.join("s.parquet")), read(&root().join("tests/golden/pulsar_demo.parquet")));
+    let r = |df: &polars::prelude::DataFrame| df.column("residual_s").unwrap().f64().unwrap().iter().map(|v| v.unwrap()).collect::<Vec<f64>>();
+    let worst = r(&a).iter().zip(r(&b)).map(|(x, y)| (x - y).abs()).fold(0.0, f64::max);
+    assert!(worst < 1e-12, "sexagesimal vs degrees: {worst} s");
+    let md: std::collections::BTreeMap<String, String> = lapse::io::read_parquet_metadata(&d.join("s.parquet")).unwrap().into_iter().collect();
+    assert_eq!(md["lapse.param.source.ra_hms"], "16:53:39.048");
+    assert!(md["lapse.source.ra_deg_used"].starts_with("253.41"));
+    // Two forms at once are refused.
+    let both = text.replace("ra_deg = 253.4127", "ra_deg = 253.4127\nra_hms = \"16:53:39.048\"");
+    std::fs::write(d.join("b.toml"), both).unwrap();
+    assert_eq!(lapse(&["check", d.join("b.toml").to_str().unwrap()]).status.code(), Some(2));
+}

@@ -85,6 +85,24 @@ pub fn einstein_s(tdb: &crate::time::Epoch, tt: &crate::time::Epoch) -> f64 {
     ratio_to_f64(tdb.label_fs() - tt.label_fs(), FS_PER_S)
 }
 
+/// ICRS right ascension and declination (deg, RA in [0, 360)) of a
+/// direction given in ecliptic longitude and latitude (deg) of the mean
+/// ecliptic and equinox of J2000.0, with the IAU 2006 obliquity and the
+/// ICRS frame bias.
+///
+/// # Accuracy
+/// That of the IAU 2006 precession model at J2000.0 (a rotation: exact to
+/// f64 rounding, ≈ 1e-16 rad).
+///
+/// # References
+/// IAU SOFA routine ECEQ06 (ecliptic of date → ICRS) evaluated at
+/// J2000.0 TT (`sofars::coords::eceq06`); Hilton et al. 2006, Celest. Mech.
+/// Dyn. Astron. 94, 351 (IAU 2006 obliquity ε₀ = 84381.406″).
+pub fn ecliptic_j2000_to_icrs_deg(lon_deg: f64, lat_deg: f64) -> (f64, f64) {
+    let (ra, dec) = sofars::coords::eceq06(2_451_545.0, 0.0, lon_deg.to_radians(), lat_deg.to_radians());
+    (ra.to_degrees(), dec.to_degrees())
+}
+
 /// Roemer delay r·n̂/c (s): the light travel time from the observer to the
 /// barycentre projected on the source direction.
 ///

@@ -51,8 +51,15 @@ struct ClocksCfg {
 #[serde(deny_unknown_fields)]
 struct SourceCfg {
     name: Option<String>,
-    ra_deg: f64,
-    dec_deg: f64,
+    /// ICRS position, one of three forms: degrees, sexagesimal text
+    /// (`ra_hms = "05:34:31.94"`, `dec_dms = "+22:00:52.1"`), or ecliptic
+    /// longitude and latitude (mean ecliptic and equinox of J2000.0, IAU 2006).
+    ra_deg: Option<f64>,
+    dec_deg: Option<f64>,
+    ra_hms: Option<String>,
+    dec_dms: Option<String>,
+    ecliptic_lon_deg: Option<f64>,
+    ecliptic_lat_deg: Option<f64>,
     position_epoch_mjd: f64,
     pm_ra_cosdec_mas_per_yr: Option<f64>,
     pm_dec_mas_per_yr: Option<f64>,
@@ -264,6 +271,48 @@ const BINARY_COLUMNS: [&str; 6] = ["binary_roemer_s", "binary_einstein_s", "bina
 /// to 2100-01-01, the span the ephemerides and time-scale models here serve.
 pub const MJD_RANGE: (f64, f64) = (15_020.0, 88_069.0);
 
+/// Reads a sexagesimal angle `[±]a:b:c[.d]` (also with spaces) as
+/// a + b/60 + c/3600 in the unit of `a` (hours or degrees); the sign
+/// applies to the whole angle, also for "-00:…".
+pub fn sexagesimal(text: &str) -> Option<f64> {
+    let t = text.trim();
+    let (negative, body) = match t.strip_prefix('-') {
+        Some(b) => (true, b),
+        None => (false, t.strip_prefix('+').unwrap_or(t)),
+    };
+    let parts: Vec<&str> = body.split([':', ' ']).filter(|p| !p.is_empty()).collect();
+    if parts.len() != 3 || parts[..2].iter().any(|p| !p.bytes().all(|b| b.is_ascii_digit())) {
+        return None;
+    }
+    let (a, b, c): (f64, f64, f64) = (parts[0].parse().ok()?, parts[1].parse().ok()?, parts[2].parse().ok()?);
+    if !(b < 60.0 && (0.0..60.0).contains(&c)) {
+        return None;
+    }
+    let v = a + b / 60.0 + c / 3600.0;
+    Some(if negative { -v } else { v })
+}
+
+/// The ICRS position (deg) from whichever form `[source]` gives: degrees,
+/// sexagesimal (`ra_hms`, `dec_dms`), or ecliptic coordinates of J2000.0
+/// (IAU 2006 obliquity and frame bias: `sofars::coords::eceq06` at
+/// J2000.0, the IAU SOFA routine ECEQ06). Exactly one form.
+fn source_position_deg(file: &PipelineFile, s: &SourceCfg) -> Result<(f64, f64), PipelineError> {
+    match (s.ra_deg, s.dec_deg, &s.ra_hms, &s.dec_dms, s.ecliptic_lon_deg, s.ecliptic_lat_deg) {
+        (Some(ra), Some(dec), None, None, None, None) => Ok((ra, dec)),
+        (None, None, Some(ra), Some(dec), None, None) => {
+            let ra_h = sexagesimal(ra).filter(|h| (0.0..24.0).contains(h)).ok_or_else(|| file.invalid(format!("[source] ra_hms = \"{ra}\": give hours:minutes:seconds, 0 ≤ RA < 24 h")))?;
+            let dec_d = sexagesimal(dec).filter(|d| d.abs() <= 90.0).ok_or_else(|| file.invalid(format!("[source] dec_dms = \"{dec}\": give ±degrees:minutes:seconds, |Dec| ≤ 90°")))?;
+            Ok((ra_h * 15.0, dec_d))
+        }
+        (None, None, None, None, Some(lon), Some(lat)) => {
+            let lon = file.check_range("[source] ecliptic_lon_deg", lon, -360.0, 360.0)?;
+            let lat = file.check_range("[source] ecliptic_lat_deg", lat, -90.0, 90.0)?;
+            Ok(crate::delays::ecliptic_j2000_to_icrs_deg(lon, lat))
+        }
+        _ => Err(file.invalid("[source]: give the position once, as ra_deg and dec_deg, as ra_hms and dec_dms, or as ecliptic_lon_deg and ecliptic_lat_deg")),
+    }
+}
+
 /// Default Shapiro bodies for pulsar timing (the bodies whose delay exceeds
 /// ≈ 1 ns for a ray within a few degrees: Backer & Hellings 1986, ARA&A 24,
 /// 537, sec. 3.2; Lorimer & Kramer 2005, sec. 8.2.3).
@@ -308,10 +357,11 @@ impl Pulsar {
             clocks.insert(site.clone(), tables);
         }
         let s = &cfg.source;
+        let (ra_deg, dec_deg) = source_position_deg(file, s)?;
         // Documented ranges (README, "Pulsar batches"): outside them a model is
         // not meant to be evaluated, and results would be absurd or non-finite.
-        file.check_range("[source] ra_deg", s.ra_deg, 0.0, 360.0)?;
-        file.check_range("[source] dec_deg", s.dec_deg, -90.0, 90.0)?;
+        file.check_range("[source] ra_deg", ra_deg, 0.0, 360.0)?;
+        file.check_range("[source] dec_deg", dec_deg, -90.0, 90.0)?;
         file.check_range("[source] position_epoch_mjd", s.position_epoch_mjd, MJD_RANGE.0, MJD_RANGE.1)?;
         file.check_range("[source] pm_ra_cosdec_mas_per_yr", s.pm_ra_cosdec_mas_per_yr.unwrap_or(0.0), -1e5, 1e5)?;
         file.check_range("[source] pm_dec_mas_per_yr", s.pm_dec_mas_per_yr.unwrap_or(0.0), -1e5, 1e5)?;
@@ -328,13 +378,13 @@ impl Pulsar {
         }
         file.check_range("[dispersion] measure_pc_cm3", cfg.dispersion.as_ref().map(|d| d.measure_pc_cm3).unwrap_or(0.0), 0.0, 1e5)?;
         file.check_range("[corrections] ppn_gamma", cfg.corrections.as_ref().and_then(|c| c.ppn_gamma).unwrap_or(1.0), 0.0, 2.0)?;
-        for (name, v) in [("ra_deg", s.ra_deg), ("dec_deg", s.dec_deg), ("position_epoch_mjd", s.position_epoch_mjd)] {
+        for (name, v) in [("ra_deg", ra_deg), ("dec_deg", dec_deg), ("position_epoch_mjd", s.position_epoch_mjd)] {
             if !v.is_finite() {
                 return Err(invalid(format!("[source] {name} is not finite")));
             }
         }
-        if s.dec_deg.abs() > 90.0 {
-            return Err(invalid(format!("[source] dec_deg = {} is outside ±90°", s.dec_deg)));
+        if dec_deg.abs() > 90.0 {
+            return Err(invalid(format!("[source] dec_deg = {dec_deg} is outside ±90°")));
         }
         let tdb_epoch_s = |mjd: f64, what: &str| -> Result<f64, PipelineError> {
             let e = earth.time.epoch_from_mjd(TimeScale::Tdb, mjd.floor() as i64, mjd - mjd.floor()).map_err(|e| invalid(format!("{what}: {e}")))?;
@@ -342,8 +392,8 @@ impl Pulsar {
             Ok(w as f64 + f)
         };
         let source = Source {
-            ra_rad: s.ra_deg.to_radians(),
-            dec_rad: s.dec_deg.to_radians(),
+            ra_rad: ra_deg.to_radians(),
+            dec_rad: dec_deg.to_radians(),
             position_epoch_tdb_s: tdb_epoch_s(s.position_epoch_mjd, "[source] position_epoch_mjd")?,
             pm_ra_cosdec_rad_yr: s.pm_ra_cosdec_mas_per_yr.unwrap_or(0.0) * MAS_TO_RAD,
             pm_dec_rad_yr: s.pm_dec_mas_per_yr.unwrap_or(0.0) * MAS_TO_RAD,
@@ -674,6 +724,9 @@ impl Kind for Pulsar {
     fn provenance(&self, file: &PipelineFile) -> Result<Provenance, PipelineError> {
         let mut base = shared_provenance(file, &self.inputs, &self.constants, &self.ctx.shapiro, self.ctx.ppn_gamma)?;
         base.set("constants.dispersion_k_s_mhz2_cm3_pc", &format!("{DISPERSION_K_S_MHZ2_CM3_PC:e} (1/2.41e-4)"));
+        // The position used (the pipeline's own form is in param.source.*).
+        base.set("source.ra_deg_used", &format!("{:?}", self.ctx.source.ra_rad.to_degrees()));
+        base.set("source.dec_deg_used", &format!("{:?}", self.ctx.source.dec_rad.to_degrees()));
         Ok(base)
     }
 
