@@ -809,24 +809,22 @@ impl Kind for Pulsar {
         if let Some((lo, hi)) = f.binary_range_s {
             tally.range("binary delay binary_s over the accepted rows", "s", lo, hi);
         }
+        // Residuals by site, in ns (plots in µs), the weighted mean removed
+        // from `residual_s` when the pipeline asks.
         let subtract = self.subtract_weighted_mean;
-        let set = tally.set("", || {
+        let site_set = |key: &str, headline: &str, plot: &str, title: String, x_label: &str| {
             let mut s = ResidualSet::new(
-                "",
-                "residuals",
+                key,
+                headline,
                 "site",
                 "s",
                 Unit { name: "ns", per_natural: 1e9 },
-                PlotSpec {
-                    name: "residuals".into(),
-                    title: format!("{} timing residuals", self.label),
-                    x_label: "barycentric arrival time (MJD, TDB)".into(),
-                    unit: Unit { name: "µs", per_natural: 1e6 },
-                },
+                PlotSpec { name: plot.into(), title, x_label: x_label.into(), unit: Unit { name: "µs", per_natural: 1e6 } },
             );
             s.subtract_mean_from = subtract.then_some("residual_s");
             s
-        });
+        };
+        let set = tally.set("", || site_set("", "residuals", "residuals", format!("{} timing residuals", self.label), "barycentric arrival time (MJD, TDB)"));
         let orbit_set = self.ctx.binary.is_some().then(|| (f.orbital_phase.clone(), f.residual_s.clone(), f.sigma_s.clone()));
         set.extend_indexed(&f.site_names, &f.site_idx, f.bat_mjd, f.residual_s, f.sigma_s);
         for site in &f.rejected_sites {
@@ -836,20 +834,8 @@ impl Kind for Pulsar {
         // second summary (same rows, same mean removed).
         if let Some((phase, residual, sigma)) = orbit_set {
             let orbit = tally.set("orbit", || {
-                let mut s = ResidualSet::new(
-                    "orbit",
-                    "residuals against orbital phase",
-                    "site",
-                    "s",
-                    Unit { name: "ns", per_natural: 1e9 },
-                    PlotSpec {
-                        name: "residuals_orbit".into(),
-                        title: format!("{} timing residuals against orbital phase", self.label),
-                        x_label: "orbital phase (mean anomaly / 2π)".into(),
-                        unit: Unit { name: "µs", per_natural: 1e6 },
-                    },
-                );
-                s.subtract_mean_from = subtract.then_some("residual_s");
+                let mut s =
+                    site_set("orbit", "residuals against orbital phase", "residuals_orbit", format!("{} timing residuals against orbital phase", self.label), "orbital phase (mean anomaly / 2π)");
                 s.summarised = false;
                 s
             });
