@@ -26,9 +26,9 @@ fn main() -> std::io::Result<()> {
         std::fs::write(root.join("clock").join(name), s)
     };
     let tau = std::f64::consts::TAU;
-    table("falcon_to_gps.csv", "FALCON-RT site clock -> GPS", &|m| 2.5e-6 + 0.3e-9 * (m - 58_600.0) + 20e-9 * (tau * m / 365.25).sin())?;
-    table("gps_to_utc.csv", "GPS -> UTC (small steered difference)", &|m| 4e-9 * (tau * m / 200.0).sin())?;
-    table("kestrel_to_utc.csv", "KESTREL-1 site clock -> UTC", &|m| -0.8e-6 - 0.12e-9 * (m - 58_600.0))?;
+    table("FALCON-RT__GPS.csv", "FALCON-RT site clock -> GPS", &|m| 2.5e-6 + 0.3e-9 * (m - 58_600.0) + 20e-9 * (tau * m / 365.25).sin())?;
+    table("GPS__UTC.csv", "GPS -> UTC (small steered difference)", &|m| 4e-9 * (tau * m / 200.0).sin())?;
+    table("KESTREL-1__UTC.csv", "KESTREL-1 site clock -> UTC", &|m| -0.8e-6 - 0.12e-9 * (m - 58_600.0))?;
 
     let mut plan = String::from("# invented observing plan for LAPSE-PSR-A (approximate epochs; lapse synth makes them exact)\nsite,mjd,freq_mhz,sigma_us\n");
     let mut x: u64 = 0x00C0_FFEE;

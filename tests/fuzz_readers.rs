@@ -96,7 +96,7 @@ fn station_catalogue() {
 
 #[test]
 fn clock_tables() {
-    let seed = std::fs::read(root().join("data/demo/clock/falcon_to_gps.csv")).unwrap();
+    let seed = std::fs::read(root().join("data/demo/clock/FALCON-RT__GPS.csv")).unwrap();
     fuzz_bytes("clock", &seed[..2000.min(seed.len())], |b| {
         if let Ok(t) = lapse::pulsar::clock::ClockTable::parse(&text(b), Path::new("fuzz.csv")) {
             let _ = lapse::pulsar::clock::chain_at(&[t], 58_700.3, true);
