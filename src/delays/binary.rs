@@ -190,7 +190,8 @@ impl BinaryOrbit {
     /// The emission time T (s from the reference epoch) for a barycentric
     /// arrival `bat_dt_s` (s from the same epoch): T + binary_s(T) = BAT,
     /// by fixed-point iteration (each pass shrinks the error by the delay's
-    /// rate, ≲ x·2π/P_b·(1+e)/(1−e)) to 1e-13 s.
+    /// rate, ≲ x·2π/P_b·(1+e)/(1−e)) to 1e-13 s, or to the f64 resolution
+    /// of the seconds from the reference epoch when that is coarser.
     ///
     /// # References
     /// Damour & Deruelle 1986, sec. 4 (the timing formula is solved for the
@@ -202,7 +203,10 @@ impl BinaryOrbit {
         for _ in 0..MAX_ITERATIONS {
             let d = self.delays(t)?;
             let next = bat_dt_s - d.total_s;
-            if (next - t).abs() <= TOL_S {
+            // 1e-13 s, or a few ulps of t where f64 seconds from the
+            // reference epoch cannot resolve it (≈ 7e-9 s at 1e8 s: the
+            // delay's rate times that is ≲ 1e-11 s).
+            if (next - t).abs() <= TOL_S.max(4.0 * f64::EPSILON * t.abs()) {
                 let d = self.delays(next)?;
                 return Ok((next, d));
             }
@@ -339,6 +343,18 @@ mod tests {
         dd.period_derivative = 0.0;
         let d = dd.delays(0.0).unwrap();
         assert!((d.shapiro_s + 2.0 * r * (1.0 - s).ln()).abs() < 1e-18, "{}", d.shapiro_s);
+    }
+
+    #[test]
+    fn emission_time_converges_far_from_the_reference_epoch() {
+        // 1e8 s from T₀ an f64 second resolves ≈ 1.5e-8 s: the iteration
+        // must stop at that resolution, not cycle between neighbours.
+        let o = orbit(BinaryModel::Relativistic);
+        for k in 0..2000 {
+            let bat = -1.2e8 + 123_456.789 * k as f64;
+            let (t, d) = o.emission(bat).unwrap();
+            assert!((t + d.total_s - bat).abs() <= 1e-7, "{bat}");
+        }
     }
 
     #[test]
