@@ -32,12 +32,12 @@ fn summaries_are_machine_readable() {
     let stdout = String::from_utf8_lossy(&o.stdout);
     assert!(!stdout.contains("rows in "), "JSON instead of the text summary");
     let v: serde_json::Value = serde_json::from_str(&stdout).unwrap();
-    assert_eq!(v["rows"]["in"], 518);
+    assert_eq!(v["rows"]["in"], 524);
     let sets = v["residuals"].as_array().unwrap();
     assert_eq!(sets.iter().map(|s| s["key"].as_str().unwrap()).collect::<Vec<_>>(), ["doppler_2way", "doppler_3way", "light_time_2way"]);
     assert_eq!(sets[0]["unit"], "hz");
     let file: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(d.join("demo.summary.json")).unwrap()).unwrap();
-    assert_eq!(file["rows"]["out"], 518);
+    assert_eq!(file["rows"]["out"], 524);
     assert!(file["run_id"].as_str().is_some());
 }
 
