@@ -10,8 +10,8 @@ use polars::prelude::*;
 use super::commit::Commit;
 use super::kind::{Kind, Processed};
 use super::partition::rejects_path;
-use super::preflight::{Facts, Level, Preflight, check_partition, scan_file, scan_frame};
-use super::table::{IdChecker, check_input_names, check_unique_ids, ids, parquet_rows, read_parquet_slice};
+use super::preflight::{Facts, Level, Preflight, check_partition, scan_file};
+use super::table::{check_input_names, check_unique_ids, ids, parquet_rows, read_parquet_slice};
 use super::tally::{Tally, plot, summarise};
 use super::{PipelineError, Provenance, RunSummary};
 use crate::io::{IoError, read_parquet, write_parquet_file};
@@ -328,12 +328,4 @@ pub fn check_file(kind: &dyn Kind, report: &mut Preflight, path: &Path) {
         Ok(facts) => check_partition(kind, report, path, &facts),
         Err(e) => report.add(Level::Unusable, e.to_string()),
     }
-}
-
-/// Facts of one in-memory batch and its ids (for engines without files).
-pub fn scan_batch(kind: &dyn Kind, df: &DataFrame, source: &Path) -> Result<Facts, PipelineError> {
-    let mut facts = Facts::default();
-    let mut id_check = IdChecker::new(df.height());
-    scan_frame(kind, df, source, 0, &mut facts, &mut id_check)?;
-    Ok(facts)
 }

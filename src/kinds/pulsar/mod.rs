@@ -195,7 +195,7 @@ impl Pulsar {
         out
     }
 
-    /// The frames of one batch; `sigma_s` from [`accepted_sigma_and_residual_s`].
+    /// The frames of one batch; `sigma_s` from [`accepted_sigma_s`].
     fn batch_frames(&self, df: &DataFrame, input: &PulsarInput, input_path: &Path, results: &[Result<ArrivalResult, Reject>], sigma_s: Vec<f64>) -> Result<BatchFrames, PipelineError> {
         let ok: Vec<bool> = results.iter().map(|r| r.is_ok()).collect();
         let good: Vec<&ArrivalResult> = results.iter().filter_map(|r| r.as_ref().ok()).collect();
@@ -408,17 +408,9 @@ struct BatchFrames {
     clock_extrapolated: usize,
 }
 
-/// σ (s) and raw residual (s) of the accepted rows, in input order, from one
-/// read of the (large) results.
-fn accepted_sigma_and_residual_s(results: &[Result<ArrivalResult, Reject>], input: &PulsarInput) -> (Vec<f64>, Vec<f64>) {
-    let (mut sigma_s, mut raw) = (Vec::with_capacity(results.len()), Vec::with_capacity(results.len()));
-    for (r, s) in results.iter().zip(&input.sigma_us) {
-        if let Ok(g) = r {
-            sigma_s.push(s.unwrap_or(1.0) * 1e-6);
-            raw.push(g.residual_s);
-        }
-    }
-    (sigma_s, raw)
+/// σ (s) of the accepted rows, in input order.
+fn accepted_sigma_s(results: &[Result<ArrivalResult, Reject>], input: &PulsarInput) -> Vec<f64> {
+    results.iter().zip(&input.sigma_us).filter(|(r, _)| r.is_ok()).map(|(_, s)| s.unwrap_or(1.0) * 1e-6).collect()
 }
 
 impl Kind for Pulsar {
@@ -511,7 +503,7 @@ impl Kind for Pulsar {
         let input = read_pulsar_input(df, source)?;
         let results = self.compute(&input, exec);
         let t1 = std::time::Instant::now();
-        let (sigma_s, _) = accepted_sigma_and_residual_s(&results, &input);
+        let sigma_s = accepted_sigma_s(&results, &input);
         let f = self.batch_frames(df, &input, source, &results, sigma_s)?;
         tracing::debug!(rows = df.height(), compute_s = (t1 - t0).as_secs_f64(), frames_s = t1.elapsed().as_secs_f64(), "pulsar batch");
         let mut tally = Tally::default();
