@@ -414,14 +414,16 @@ impl TimeScales {
             return Ok(e);
         }
         let tt = self.tt_fs(&e, observer_s)?;
-        // Refused outside the models' stated ranges (documented in the README).
-        let tt_mjd = tt.div_euclid(crate::time::femto::FS_PER_DAY);
+        // Refused outside the models' stated ranges (documented in the README);
+        // compared in femtoseconds (no 128-bit division on every conversion).
         let (lo, hi, what) = if matches!(e.scale, TimeScale::Tdb | TimeScale::Tcb) || matches!(to, TimeScale::Tdb | TimeScale::Tcb) {
             (TDB_MODEL_MJD.0, TDB_MODEL_MJD.1, "TDB − TT series (1600–2200)")
         } else {
             (CALENDAR_MJD.0, CALENDAR_MJD.1, "calendar (years 1–9999)")
         };
-        if !(lo as i128..hi as i128).contains(&tt_mjd) {
+        let day_fs = crate::time::femto::FS_PER_DAY;
+        if !(lo as i128 * day_fs..hi as i128 * day_fs).contains(&tt) {
+            let tt_mjd = tt.div_euclid(day_fs);
             return Err(TimeError::OutOfRange { what: format!("TT MJD {tt_mjd} is outside the range of the {what}, MJD {lo} … {hi}") });
         }
         match to {
