@@ -86,46 +86,57 @@ impl std::str::FromStr for TimeFormat {
     }
 }
 
-/// The conversion table of every requested epoch, in `format`.
-pub fn convert_as(req: &TimeRequest, format: TimeFormat) -> Result<String, TimeCommandError> {
-    let text = convert(req)?;
-    if format == TimeFormat::Text {
-        return Ok(text);
-    }
-    // The text form's data lines are `<scale> <iso>  MJD <mjd>` under a
-    // `# <input> (<from>)` line: the other forms are made from them.
-    let mut rows: Vec<(String, String, String, String, String)> = Vec::new();
-    let (mut input, mut from) = (String::new(), String::new());
-    for line in text.lines() {
-        if let Some(head) = line.strip_prefix("# ") {
-            if let Some((i, f)) = head.rsplit_once(" (").filter(|_| !head.starts_with("site ") && !head.starts_with("UT1 ")) {
-                (input, from) = (i.to_string(), f.trim_end_matches(')').to_string());
-            }
-            continue;
-        }
-        let mut f = line.split_whitespace();
-        if let (Some(scale), Some(iso), Some("MJD"), Some(mjd)) = (f.next(), f.next(), f.next(), f.next()) {
-            rows.push((input.clone(), from.clone(), scale.to_string(), iso.to_string(), mjd.to_string()));
-        }
-    }
-    Ok(match format {
-        TimeFormat::Csv => {
-            let q = |s: &str| if s.contains([',', '"']) { format!("\"{}\"", s.replace('"', "\"\"")) } else { s.to_string() };
-            let mut out = String::from("input,from,scale,iso,mjd\n");
-            for (i, f, s, iso, m) in &rows {
-                out.push_str(&format!("{},{f},{s},{iso},{m}\n", q(i)));
-            }
-            out
-        }
-        _ => {
-            let v: Vec<serde_json::Value> = rows.iter().map(|(i, f, s, iso, m)| serde_json::json!({ "input": i, "from": f, "scale": s, "iso": iso, "mjd": m })).collect();
-            serde_json::to_string_pretty(&v).unwrap_or_default() + "\n"
-        }
-    })
+/// One requested epoch, converted: its text, where it came from, comment
+/// lines (site term, predicted EOP) and (scale, ISO text, MJD text) per
+/// target scale.
+struct Converted {
+    input: String,
+    notes: Vec<String>,
+    values: Vec<(TimeScale, String, String)>,
 }
 
-/// The conversion table of every requested epoch, as printed.
+/// The conversion table of every requested epoch, in `format`.
+pub fn convert_as(req: &TimeRequest, format: TimeFormat) -> Result<String, TimeCommandError> {
+    let (from, rows) = convert_rows(req)?;
+    let mut out = String::new();
+    match format {
+        TimeFormat::Text => {
+            for r in &rows {
+                out.push_str(&format!("# {} ({from})\n", r.input));
+                for n in &r.notes {
+                    out.push_str(&format!("# {n}\n"));
+                }
+                for (scale, iso, mjd) in &r.values {
+                    out.push_str(&format!("{:<4} {iso}  MJD {mjd}\n", scale.name()));
+                }
+            }
+        }
+        TimeFormat::Csv => {
+            let q = |s: &str| if s.contains([',', '"']) { format!("\"{}\"", s.replace('"', "\"\"")) } else { s.to_string() };
+            out.push_str("input,from,scale,iso,mjd\n");
+            for r in &rows {
+                for (scale, iso, mjd) in &r.values {
+                    out.push_str(&format!("{},{from},{},{iso},{mjd}\n", q(&r.input), scale.name()));
+                }
+            }
+        }
+        TimeFormat::Json => {
+            let v: Vec<serde_json::Value> = rows
+                .iter()
+                .flat_map(|r| r.values.iter().map(|(scale, iso, mjd)| serde_json::json!({ "input": r.input, "from": from.to_string(), "scale": scale.name(), "iso": iso, "mjd": mjd })))
+                .collect();
+            out = serde_json::to_string_pretty(&v).unwrap_or_default() + "\n";
+        }
+    }
+    Ok(out)
+}
+
+/// The conversion table of every requested epoch, as text.
 pub fn convert(req: &TimeRequest) -> Result<String, TimeCommandError> {
+    convert_as(req, TimeFormat::Text)
+}
+
+fn convert_rows(req: &TimeRequest) -> Result<(TimeScale, Vec<Converted>), TimeCommandError> {
     let from: TimeScale = req.from.parse().map_err(|source| TimeCommandError::Option { option: "from", source })?;
     let targets: Vec<TimeScale> = if req.to.is_empty() {
         TimeScale::ALL.into_iter().filter(|s| *s != TimeScale::Ut1 || req.eop.is_some()).collect()
@@ -146,12 +157,11 @@ pub fn convert(req: &TimeRequest) -> Result<String, TimeCommandError> {
     if req.extend_leaps {
         leaps = leaps.with_policy(ExpiryPolicy::ExtendLastOffset);
     }
-    let leaps_for_check = leaps.clone();
     let mut ts = TimeScales::new(leaps);
     let (mut earth, mut eop_table) = (None, None);
     if let Some(path) = &req.eop {
         let table = Arc::new(EopTable::from_file(path)?);
-        table.check_leap_seconds(&leaps_for_check)?;
+        table.check_leap_seconds(ts.leap_seconds())?;
         ts = ts.with_ut1(table.clone());
         eop_table = Some(table.clone());
         if let Some((code, stations, kernel)) = &req.site {
@@ -175,30 +185,32 @@ pub fn convert(req: &TimeRequest) -> Result<String, TimeCommandError> {
     if epochs.is_empty() {
         return Err(TimeCommandError::NoEpochs);
     }
-    let mut out = String::new();
+    let mut rows = Vec::with_capacity(epochs.len());
     for (text, source) in epochs.iter().zip(&sources) {
         let here = format!("{source}: {text}");
         let e = parse_epoch(&ts, from, text).map_err(|e| at(source)(e.into()))?;
-        out.push_str(&format!("# {text} ({from})\n"));
+        let mut notes = Vec::new();
         let mut observer_s = req.observer_term_s;
         if let Some((model, eph, station)) = &earth {
             let state = model.station_state_at(eph, station, &e).map_err(|e| at(&format!("{here} at site {}", station.code))(e.into()))?;
             observer_s = state.observer_term_s;
-            out.push_str(&format!("# site {}: topocentric TDB − TT = {observer_s:+.15e} s (v_E·x/c²){}\n", station.code, if state.eop.predicted { "; EOP values are PREDICTIONS" } else { "" }));
+            notes.push(format!("site {}: topocentric TDB − TT = {observer_s:+.15e} s (v_E·x/c²){}", station.code, if state.eop.predicted { "; EOP values are PREDICTIONS" } else { "" }));
         }
         if let (Some(table), true) = (&eop_table, targets.contains(&TimeScale::Ut1)) {
             let utc = ts.convert(e, TimeScale::Utc, observer_s).map_err(|e| at(&here)(e.into()))?;
             if table.at_utc(ts.leap_seconds(), &utc).map_err(|e| at(&here)(e.into()))?.predicted {
-                out.push_str(&format!("# UT1 uses PREDICTED Earth-orientation values from {}\n", table.path().display()));
+                notes.push(format!("UT1 uses PREDICTED Earth-orientation values from {}", table.path().display()));
             }
         }
+        let mut values = Vec::with_capacity(targets.len());
         for t in &targets {
             let c = ts.convert(e, *t, observer_s).map_err(|e| at(&here)(e.into()))?;
             let mjd = ts.mjd_fraction_digits(&c, 18)?;
             let iso = c.to_string();
-            let iso = iso.rsplit_once(' ').map(|(a, _)| a).unwrap_or(&iso);
-            out.push_str(&format!("{:<4} {iso}  MJD {mjd}\n", t.name()));
+            let iso = iso.rsplit_once(' ').map(|(a, _)| a).unwrap_or(&iso).to_string();
+            values.push((*t, iso, mjd));
         }
+        rows.push(Converted { input: text.clone(), notes, values });
     }
-    Ok(out)
+    Ok((from, rows))
 }
