@@ -16,9 +16,10 @@
 use std::f64::consts::TAU;
 
 /// Which timing formula.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
 pub enum BinaryModel {
     /// Blandford & Teukolsky 1976: Keplerian orbit, secular ω̇, γ and Shapiro.
+    #[default]
     Keplerian,
     /// Damour & Deruelle 1986: relativistic timing formula (ω advancing with
     /// the true anomaly, δ_r, δ_θ, aberration A and B).
@@ -29,7 +30,9 @@ pub enum BinaryModel {
 
 /// A binary orbit's parameters, in SI units and radians; epochs enter as
 /// seconds from the reference epoch (T₀, or T_asc for `NearCircular`).
-#[derive(Clone, Debug, PartialEq)]
+/// `Default` is all zeros (a Keplerian orbit with no period: set at least
+/// `period_s`).
+#[derive(Clone, Debug, Default, PartialEq)]
 pub struct BinaryOrbit {
     pub model: BinaryModel,
     /// Orbital period P_b at the reference epoch, s.
@@ -253,20 +256,12 @@ mod tests {
             period_s: 0.4 * 86_400.0,
             period_derivative: -2.4e-12,
             x_s: 2.34,
-            x_dot: 0.0,
             eccentricity: 0.6,
-            eccentricity_dot_per_s: 0.0,
             omega_rad: 1.2,
-            omega_dot_rad_per_s: 0.0,
             gamma_s: 4.3e-3,
             shapiro_range_s: 6.8e-6,
             shapiro_shape: 0.73,
-            delta_r: 0.0,
-            delta_theta: 0.0,
-            aberration_a_s: 0.0,
-            aberration_b_s: 0.0,
-            eta: 0.0,
-            kappa: 0.0,
+            ..Default::default()
         }
     }
 
@@ -297,8 +292,9 @@ mod tests {
 
     #[test]
     fn near_circular_matches_relativistic_to_order_x_e_squared() {
-        // Lange et al. 2001: ELL1 = DD to first order in e; the constant
-        // −(3/2) x η is left out of ELL1 (absorbed in the spin phase).
+        // Lange et al. 2001: near_circular = relativistic to first order in e;
+        // the constant −(3/2) x η is left out of near_circular (absorbed in
+        // the spin phase).
         let e = 1e-5;
         let w = 0.7f64;
         let mut dd = orbit(BinaryModel::Relativistic);
@@ -307,18 +303,18 @@ mod tests {
         dd.gamma_s = 0.0;
         dd.shapiro_range_s = 0.0;
         dd.period_derivative = 0.0;
-        let mut ell1 = dd.clone();
-        ell1.model = BinaryModel::NearCircular;
-        ell1.eta = e * w.sin();
-        ell1.kappa = e * w.cos();
-        // T_asc = T₀ − ω P_b / 2π: ELL1 epochs are measured from T_asc.
+        let mut near = dd.clone();
+        near.model = BinaryModel::NearCircular;
+        near.eta = e * w.sin();
+        near.kappa = e * w.cos();
+        // T_asc = T₀ − ω P_b / 2π: near_circular epochs are measured from T_asc.
         let tasc_from_t0_s = -w / TAU * dd.period_s;
         let bound_s = dd.x_s * e * e;
         let mut worst = 0.0f64;
         for k in 0..5000 {
             let t = 1234.5 * k as f64;
             let a = dd.delays(t).unwrap().roemer_s;
-            let b = ell1.delays(t - tasc_from_t0_s).unwrap().roemer_s - 1.5 * dd.x_s * ell1.eta;
+            let b = near.delays(t - tasc_from_t0_s).unwrap().roemer_s - 1.5 * dd.x_s * near.eta;
             worst = worst.max((a - b).abs());
         }
         assert!(worst <= bound_s, "{worst} > x e² = {bound_s}");
@@ -329,11 +325,11 @@ mod tests {
         // Edge-on circular orbit at superior conjunction: −2 r ln(1 − s)
         // (common practice).
         let (r, s) = (1.2e-6, 0.999);
-        let mut ell1 = orbit(BinaryModel::NearCircular);
-        ell1.shapiro_range_s = r;
-        ell1.shapiro_shape = s;
+        let mut near = orbit(BinaryModel::NearCircular);
+        near.shapiro_range_s = r;
+        near.shapiro_shape = s;
         // Φ = π/2 at a quarter orbit from T_asc.
-        let d = ell1.delays(0.25 * ell1.period_s).unwrap();
+        let d = near.delays(0.25 * near.period_s).unwrap();
         assert!((d.shapiro_s + 2.0 * r * (1.0 - s).ln()).abs() < 1e-18, "{}", d.shapiro_s);
         let mut dd = orbit(BinaryModel::Relativistic);
         dd.eccentricity = 0.0;
