@@ -134,6 +134,8 @@ impl Commit {
         for (tmp, fin) in &self.staged {
             std::fs::rename(tmp, fin).map_err(|e| werr(fin, e))?;
         }
+        // Committed: nothing staged is left for Drop to remove.
+        self.staged.clear();
         sync_dir(&dir);
         Ok(())
     }
